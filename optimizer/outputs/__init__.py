@@ -1,0 +1,1 @@
+"""What the builder takes to the bench: tables, BOM, reports, plots, schematic, netlist."""
