@@ -102,3 +102,73 @@ def cmd_validate(args) -> int:
         _say(args, "  stock holds   " + ", ".join(f"{n} {k}{'s' if n != 1 else ''}" for k, n in kinds.items()))
     _say(args, "\nspec is valid")
     return EXIT_OK
+
+
+def _design_under_spec(design, spec):
+    """The design placed in the spec's conditions (supply, ambient, load, sources)."""
+    from dataclasses import replace
+
+    if len(spec.inputs) != design.n_inputs:
+        raise FileProblems([Problem(str(spec.path), 0, "inputs",
+                                    f"the spec has {len(spec.inputs)} inputs but the design has {design.n_inputs}")])
+    return replace(design, supply=spec.supply, ambient=spec.ambient, load=spec.load,
+                   sources=tuple(i.source_resistance for i in spec.inputs),
+                   input_names=tuple(i.name for i in spec.inputs), thd_limit=spec.targets.distortion_max,
+                   level=spec.targets.required_swing() or design.level)
+
+
+def cmd_check(args) -> int:
+    from .analysis.evaluate import analyse, ratings
+    from .analysis.targets import judge
+    from .cli import EXIT_UNMET
+    from .outputs.figures_json import analysis_json, analysis_text
+    from .spec.designfile import load_design
+    from .spec.specfile import load_spec
+
+    design = load_design(args.design)
+    spec = None
+    spec_path = args.spec or (str(design.spec_path) if design.spec_path and design.spec_path.is_file() else None)
+    if spec_path:
+        spec = load_spec(spec_path)
+        design = _design_under_spec(design, spec)
+    if args.transistor:
+        from .catalog.transistors import transistor_types
+
+        types = transistor_types()
+        if args.transistor not in types:
+            import difflib
+
+            close = difflib.get_close_matches(args.transistor, list(types), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise FileProblems([Problem("command line", 0, "--transistor",
+                                        f"unknown transistor type {args.transistor!r}{hint} (known: {', '.join(sorted(types))})")])
+        design = design.with_model(args.transistor, types[args.transistor].model())
+    an = analyse(design)
+    rt = ratings(an)
+    targets = judge(an, spec) if spec else None
+    mc = None
+    if args.monte_carlo:
+        from .analysis.montecarlo import monte_carlo
+
+        mc = monte_carlo(design, an.circuit, an.conditions, args.monte_carlo, args.seed, spec, design.thd_limit)
+        mc.pop("swing_samples", None)
+        mc.pop("gain_samples", None)
+    if args.json:
+        print_json(analysis_json(an, rt, targets, mc))
+    else:
+        print(analysis_text(an, rt, targets))
+        if mc:
+            print()
+            print(f"  Monte Carlo, {mc['samples']} samples (seed {mc['seed']}):")
+            for k, v in mc.get("yield", {}).items():
+                if k != "large_signal_samples":
+                    print(f"    {k:<18} {v * 100:6.1f} % of builds meet it")
+        if targets is not None:
+            bad = [t for t in targets if not t.passed]
+            print()
+            print("  meets every target" if not bad else f"  misses {len(bad)} target(s): " + ", ".join(t.name for t in bad))
+    if targets is not None and not all(t.passed for t in targets):
+        if args.transistor and not args.json:
+            print("  (with this transistor the design would need new values: run stagefit design with it)")
+        return EXIT_UNMET
+    return EXIT_OK

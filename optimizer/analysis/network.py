@@ -523,9 +523,9 @@ class Network:
         Gd, Cd = small if small is not None else self.small_signal(op)
         G = _stamp(self.conductances(batch), self.rpairs, self.N) + Gd
         C = _stamp(self.capacitance_values(batch), self.cpairs, self.N) + Cd
-        w = 2 * np.pi * np.asarray(freqs, dtype=float)
+        w = 2 * np.pi * np.asarray(freqs, dtype=float)  # (F,) or (B, F)
         r = self.N if rows is None else rows
-        Y = np.empty((r, self.N, batch.size, w.size), dtype=complex)
+        Y = np.empty((r, self.N, batch.size, w.shape[-1]), dtype=complex)
         Y.real = G[:r, :, :, None]
         Y.imag = C[:r, :, :, None] * w
         return Y
@@ -543,7 +543,7 @@ class Network:
             Add an excitation of 1 A into the output node with the load removed.
         """
         freqs = np.atleast_1d(np.asarray(freqs, dtype=float))
-        B, F = op.batch.size, freqs.size
+        B, F = op.batch.size, freqs.shape[-1]
         nf = self.nf
         Y = self.admittance(op, freqs, small, rows=nf)
         Yff = Y[:, :nf]
@@ -564,7 +564,7 @@ class Network:
                 if e.role == "load":
                     Yo[out, out] -= (1.0 / self.value(op.batch, e.ref))[:, None]
                 elif e.role == "load_cap":
-                    Yo[out, out] -= 1j * self.value(op.batch, e.ref)[:, None] * w
+                    Yo[out, out] -= 1j * self.value(op.batch, e.ref)[:, None] * (w if w.ndim == 2 else w[None, :])
             eo = np.zeros((nf, 1, B, F), dtype=complex)
             eo[out, 0] = 1.0
             V = np.concatenate([Vin, linalg.solve(Yo, eo)], axis=1)
