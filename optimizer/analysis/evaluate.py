@@ -16,7 +16,6 @@ the drive but not the output's limits).
 from __future__ import annotations
 
 import itertools
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -24,12 +23,11 @@ import numpy as np
 from ..catalog.parts import power_rating_for, voltage_rating_for
 from ..circuit.build import build_circuit
 from ..circuit.netlist import Circuit
-from ..physics import T_REF
 from . import figures as fig
 from .large_signal import clip_limits, swing_at_thd, thd_at_level
 from .network import Batch, Network
 
-__all__ = ["Analysis", "Conditions", "analyse", "conditions_of", "SMALL_FIGURES"]
+__all__ = ["Analysis", "Conditions", "analyse", "analyse_many", "conditions_of", "ratings", "SMALL_FIGURES"]
 
 #: Direction in which each figure gets worse ("min": smaller is worse; "max": larger is worse).
 ADVERSE = {
@@ -83,17 +81,20 @@ def conditions_of(design, circuit: Circuit, tolerance_scale: float = 1.0) -> Con
     return Conditions((s.nominal, s.min, s.max), (a.nominal, a.min, a.max), beta, tol)
 
 
-def _batch_at(circuit: Circuit, points: list[tuple[dict, dict]]) -> Batch:
-    """A batch from (global corner, {ref: relative deviation}) pairs."""
+def _batch_at(circuits: list[Circuit], points: list[tuple[int, dict, dict]]) -> Batch:
+    """A batch from (design index, global corner, {ref: relative deviation}) triples."""
     B = len(points)
-    b = Batch(B, np.array([g["supply"] for g, _ in points]), np.array([g["temperature"] for g, _ in points]))
-    refs = sorted({r for _, d in points for r in d})
-    base = {e.ref: e.value for e in circuit.elements}
+    b = Batch(B, np.array([g["supply"] for _, g, _ in points]), np.array([g["temperature"] for _, g, _ in points]))
+    refs = [e.ref for e in circuits[0].elements if e.kind in ("R", "C", "POT")]
+    base = [{e.ref: e.value for e in c.elements} for c in circuits]
+    pos = [{e.ref: e.position for e in c.elements if e.kind == "POT"} for c in circuits]
     for r in refs:
-        b.values[r] = np.array([base[r] * (1 + d.get(r, 0.0)) for _, d in points])
-    qrefs = sorted({r for g, _ in points for r in g["beta"]})
+        b.values[r] = np.array([base[i][r] * (1 + d.get(r, 0.0)) for i, _, d in points])
+    for r in pos[0]:
+        b.positions[r] = np.array([pos[i][r] for i, _, _ in points])
+    qrefs = sorted({r for _, g, _ in points for r in g["beta"]})
     for q in qrefs:
-        b.beta[q] = np.array([g["beta"][q] for g, _ in points])
+        b.beta[q] = np.array([g["beta"][q] for _, g, _ in points])
     return b
 
 
@@ -183,7 +184,7 @@ def _describe(g: dict, dev: dict[str, float], cond: Conditions) -> str:
 
 def analyse(design, circuit: Circuit | None = None, large_signal: bool = True, level: float | None = None,
             thd_limit: float | None = None, worst_case: bool = True) -> Analysis:
-    """Analyse a design over its corners.
+    """Analyse one design over its corners.
 
     Parameters
     ----------
@@ -195,124 +196,153 @@ def analyse(design, circuit: Circuit | None = None, large_signal: bool = True, l
         Also find swing, THD and clip limits (harmonic balance).
     level
         Output level (V peak at the load) to state THD at; default the design's ``level``,
-        else 1 V peak (capped at 80 % of the swing).
+        else 1 V peak (capped at 80 % of the worst swing).
     thd_limit
         THD (fraction) at which the swing is measured; default the design's.
     worst_case
         Evaluate the corners (otherwise nominal only).
     """
-    circuit = circuit or build_circuit(design)
-    net = Network(circuit)
-    cond = conditions_of(design, circuit)
-    nom_g = {"supply": cond.supply[0], "temperature": cond.ambient[0], "beta": {k: v[0] for k, v in cond.beta.items()}}
-    globals_ = cond.globals() if worst_case else []
-    parts = sorted(cond.tolerance) if worst_case else []
+    return analyse_many([design], [circuit] if circuit else None, large_signal, level, thd_limit, worst_case)[0]
+
+
+def analyse_many(designs: list, circuits: list[Circuit] | None = None, large_signal: bool = True,
+                 level: float | None = None, thd_limit: float | None = None, worst_case: bool = True) -> list[Analysis]:
+    """Analyse designs of one structure (same parts present, same transistor) in one batch."""
+    circuits = circuits or [build_circuit(d) for d in designs]
+    net = Network(circuits[0])
+    conds = [conditions_of(d, c) for d, c in zip(designs, circuits)]
+    nom = [{"supply": c.supply[0], "temperature": c.ambient[0], "beta": {k: v[0] for k, v in c.beta.items()}} for c in conds]
+    glob = [c.globals() if worst_case else [] for c in conds]
+    tparts = [sorted(c.tolerance) if worst_case else [] for c in conds]
     # 1. Nominal, global corners, and one-part-at-a-time moves at every global corner.
-    points: list[tuple[dict, dict]] = [(nom_g, {})]
-    for g in globals_:
-        points.append((g, {}))
-        for r in parts:
-            points.append((g, {r: cond.tolerance[r]}))
-    batch = _batch_at(circuit, points)
-    vals, (op, small, mb) = small_figures(net, batch)
+    points: list[tuple[int, dict, dict]] = []
+    layout = []  # per design: (start index, stride)
+    for i in range(len(designs)):
+        start = len(points)
+        points.append((i, nom[i], {}))
+        for g in glob[i]:
+            points.append((i, g, {}))
+            for r in tparts[i]:
+                points.append((i, g, {r: conds[i].tolerance[r]}))
+        layout.append((start, 1 + len(tparts[i])))
+    vals, _ = small_figures(net, _batch_at(circuits, points))
     names = list(vals)
-    nominal = {k: float(v[0]) for k, v in vals.items()}
-    low = {k: float(np.min(v)) for k, v in vals.items()}
-    high = {k: float(np.max(v)) for k, v in vals.items()}
-    arg_lo = {k: points[int(np.argmin(v))] for k, v in vals.items()}
-    arg_hi = {k: points[int(np.argmax(v))] for k, v in vals.items()}
-    # 2. Worst-case vertices per figure, direction and global corner.
-    if worst_case and parts:
-        vertices: dict[tuple, tuple[dict, dict]] = {}
-        stride = 1 + len(parts)
-        for gi, g in enumerate(globals_):
-            base = 1 + gi * stride
+    # 2. Worst-case vertices per design, figure, direction and global corner.
+    vpoints: list[tuple[int, dict, dict]] = []
+    seen = set()
+    for i in range(len(designs)):
+        start, stride = layout[i]
+        parts = tparts[i]
+        if not parts:
+            continue
+        for gi, g in enumerate(glob[i]):
+            base = start + 1 + gi * stride
             for name in names:
                 v0 = vals[name][base]
                 deltas = np.array([vals[name][base + 1 + j] - v0 for j in range(len(parts))])
                 for d in _direction(name):
                     sgn = np.sign(deltas) * (1 if d == "max" else -1)
-                    dev = {r: float(s_) * cond.tolerance[r] for r, s_ in zip(parts, sgn) if s_ != 0}
-                    key = (gi, tuple(sorted(dev.items())))
-                    vertices.setdefault(key, (g, dev))
-        vpoints = list(vertices.values())
-        if vpoints:
-            vb = _batch_at(circuit, vpoints)
-            vv, _ = small_figures(net, vb)
-            for k in names:
-                i_lo, i_hi = int(np.argmin(vv[k])), int(np.argmax(vv[k]))
-                if vv[k][i_lo] < low[k]:
-                    low[k], arg_lo[k] = float(vv[k][i_lo]), vpoints[i_lo]
-                if vv[k][i_hi] > high[k]:
-                    high[k], arg_hi[k] = float(vv[k][i_hi]), vpoints[i_hi]
-    corner_of = {}
-    for k in names:
-        for d in _direction(k):
-            g, dv = arg_lo[k] if d == "min" else arg_hi[k]
-            corner_of[f"{k}:{d}"] = _describe(g, dv, cond)
-    an = Analysis(design, circuit, cond, nominal, low, high, corner_of)
+                    dev = {r: float(s_) * conds[i].tolerance[r] for r, s_ in zip(parts, sgn) if s_ != 0}
+                    key = (i, gi, tuple(sorted(dev.items())))
+                    if key not in seen:
+                        seen.add(key)
+                        vpoints.append((i, g, dev))
+    vv = small_figures(net, _batch_at(circuits, vpoints))[0] if vpoints else None
+    owner = np.array([p[0] for p in points])
+    vowner = np.array([p[0] for p in vpoints]) if vpoints else np.zeros(0, dtype=int)
+    out = []
+    for i, (d, c) in enumerate(zip(designs, circuits)):
+        sel = np.nonzero(owner == i)[0]
+        vsel = np.nonzero(vowner == i)[0]
+        mypts = [points[j] for j in sel] + [vpoints[j] for j in vsel]
+        nominal = {k: float(vals[k][sel[0]]) for k in names}
+        low, high, corner_of = {}, {}, {}
+        for k in names:
+            arr = vals[k][sel] if vv is None else np.concatenate([vals[k][sel], vv[k][vsel]])
+            i_lo, i_hi = int(np.argmin(arr)), int(np.argmax(arr))
+            low[k], high[k] = float(arr[i_lo]), float(arr[i_hi])
+            for dname in _direction(k):
+                j = i_lo if dname == "min" else i_hi
+                corner_of[f"{k}:{dname}"] = _describe(mypts[j][1], mypts[j][2], conds[i])
+        out.append(Analysis(d, c, conds[i], nominal, low, high, corner_of))
     # Noise at nominal.
-    op0 = net.operating_point(_batch_at(circuit, [(nom_g, {})]))
-    total, contrib = fig.noise(net, op0)
-    an.noise = {"output_rms": float(total[0]), "sources": {k: float(v[0]) for k, v in contrib.items()}}
+    opn = net.operating_point(_batch_at(circuits, [(i, nom[i], {}) for i in range(len(designs))]))
+    total, contrib = fig.noise(net, opn)
+    for i, an in enumerate(out):
+        an.noise = {"output_rms": float(total[i]), "sources": {k: float(v[i]) for k, v in contrib.items()}}
     if large_signal:
-        _large(an, net, cond, nom_g, globals_, level if level is not None else design.level,
-               thd_limit if thd_limit is not None else design.thd_limit, worst_case)
-    return an
+        _large(out, net, circuits, conds, nom, glob, level, thd_limit, worst_case)
+    return out
 
 
-def _large(an: Analysis, net: Network, cond: Conditions, nom_g: dict, globals_: list[dict], level, thd_limit, worst_case):
-    circuit = net.circuit
-    core = [e.ref for e in circuit.parts if e.role in LARGE_ROLES and e.ref in cond.tolerance] if worst_case else []
-    points = [(nom_g, {})]
-    for g in globals_:
-        points.append((g, {}))
-        for r in core:
-            points.append((g, {r: cond.tolerance[r]}))
-    batch = _batch_at(circuit, points)
-    op = net.operating_point(batch)
-    gain = np.abs(fig.midband(net, op).gain[0])
-    sw, _ = swing_at_thd(net, op, thd_limit, gain=gain)
+def _large(ans: list[Analysis], net: Network, circuits, conds, nom, glob, level, thd_limit, worst_case):
+    """Swing, THD and clip limits for every analysis of the batch (harmonic balance)."""
+    n = len(ans)
+    core = [[e.ref for e in c.parts if e.role in LARGE_ROLES and e.ref in cond.tolerance] if worst_case else []
+            for c, cond in zip(circuits, conds)]
+    limits = [thd_limit if thd_limit is not None else an.design.thd_limit for an in ans]
+    points, layout = [], []
+    for i in range(n):
+        start = len(points)
+        points.append((i, nom[i], {}))
+        for g in glob[i]:
+            points.append((i, g, {}))
+            for r in core[i]:
+                points.append((i, g, {r: conds[i].tolerance[r]}))
+        layout.append((start, 1 + len(core[i])))
+
+    def swings(pts):
+        b = _batch_at(circuits, pts)
+        op = net.operating_point(b)
+        gain = np.abs(fig.midband(net, op).gain[0])
+        lim = np.array([limits[p[0]] for p in pts])
+        sw, _ = swing_at_thd(net, op, lim, gain=gain)
+        return sw
+
+    sw = swings(points)
     vpts = []
-    if worst_case and core:
-        stride = 1 + len(core)
-        for gi, g in enumerate(globals_):
-            base = 1 + gi * stride
-            d = sw[base + 1 : base + 1 + len(core)] - sw[base]
-            dev = {r: -float(np.sign(x)) * cond.tolerance[r] for r, x in zip(core, d) if np.sign(x) != 0}
-            vpts.append((g, dev))
+    for i in range(n):
+        start, stride = layout[i]
+        if not core[i]:
+            continue
+        for gi, g in enumerate(glob[i]):
+            base = start + 1 + gi * stride
+            dlt = sw[base + 1 : base + stride] - sw[base]
+            dev = {r: -float(np.sign(x)) * conds[i].tolerance[r] for r, x in zip(core[i], dlt) if np.sign(x) != 0}
+            vpts.append((i, g, dev))
+    swv = swings(vpts) if vpts else np.zeros(0)
     allpts = points + vpts
-    if vpts:
-        vb = _batch_at(circuit, vpts)
-        opv = net.operating_point(vb)
-        gv = np.abs(fig.midband(net, opv).gain[0])
-        swv, _ = swing_at_thd(net, opv, thd_limit, gain=gv)
-        sw_all = np.concatenate([sw, swv])
-    else:
-        opv, gv = None, None
-        sw_all = sw
-    i_min = int(np.nanargmin(sw_all))
-    nominal_swing = float(sw[0])
-    worst_swing = float(sw_all[i_min])
-    an.large["swing"] = nominal_swing
-    an.large_worst["swing"] = worst_swing
-    an.large_corner["swing"] = _describe(*allpts[i_min], cond)
-    lvl = level if level is not None else min(1.0, 0.8 * worst_swing)
-    an.large["thd_level"] = float(lvl)
-    an.large["thd_limit"] = float(thd_limit)
-    # THD at the level: nominal, and at the worst-swing point (where THD is highest).
-    wpt = allpts[i_min]
-    both = _batch_at(circuit, [points[0], wpt])
-    opb = net.operating_point(both)
-    gb = np.abs(fig.midband(net, opb).gain[0])
-    th, _ = thd_at_level(net, opb, np.array([lvl, lvl]), gain=gb)
-    an.large["thd"] = float(th[0])
-    an.large_worst["thd"] = float(th[1])
-    an.large_corner["thd"] = an.large_corner["swing"]
-    cl = clip_limits(net, opb, gain=gb)
-    an.large["clip_up"], an.large["clip_down"] = float(cl.up[0]), float(cl.down[0])
-    an.large_worst["clip_up"], an.large_worst["clip_down"] = float(cl.up[1]), float(cl.down[1])
-    an.large["clip_up_cause"], an.large["clip_down_cause"] = cl.up_cause[0], cl.down_cause[0]
+    sw_all = np.concatenate([sw, swv])
+    owners = np.array([p[0] for p in allpts])
+    worst_pts, levels = [], []
+    for i, an in enumerate(ans):
+        idx = np.nonzero(owners == i)[0]
+        vals = np.where(np.isfinite(sw_all[idx]), sw_all[idx], -np.inf)
+        j = idx[int(np.argmin(np.where(np.isfinite(sw_all[idx]), sw_all[idx], np.inf)))]
+        an.large["swing"] = float(sw[layout[i][0]])
+        an.large_worst["swing"] = float(sw_all[j]) if np.isfinite(sw_all[j]) else 0.0
+        an.large_corner["swing"] = _describe(allpts[j][1], allpts[j][2], conds[i])
+        lvl = level if level is not None else (an.design.level if an.design.level is not None
+                                               else min(1.0, 0.8 * max(an.large_worst["swing"], 1e-3)))
+        an.large["thd_level"] = float(lvl)
+        an.large["thd_limit"] = float(limits[i])
+        worst_pts.append(allpts[j])
+        levels.append(lvl)
+        del vals
+    both = [(i, nom[i], {}) for i in range(n)] + worst_pts
+    b = _batch_at(circuits, both)
+    op = net.operating_point(b)
+    gb = np.abs(fig.midband(net, op).gain[0])
+    lv = np.array(levels + levels)
+    th, _ = thd_at_level(net, op, lv, gain=gb)
+    cl = clip_limits(net, op, gain=gb)
+    for i, an in enumerate(ans):
+        an.large["thd"] = float(th[i])
+        an.large_worst["thd"] = float(th[n + i])
+        an.large_corner["thd"] = an.large_corner["swing"]
+        an.large["clip_up"], an.large["clip_down"] = float(cl.up[i]), float(cl.down[i])
+        an.large_worst["clip_up"], an.large_worst["clip_down"] = float(cl.up[n + i]), float(cl.down[n + i])
+        an.large["clip_up_cause"], an.large["clip_down_cause"] = cl.up_cause[i], cl.down_cause[i]
 
 
 # ------------------------------------------------------------------------------------
@@ -353,5 +383,3 @@ def ratings(an: Analysis) -> dict:
             "transistor": {"ref": q.ref, "dissipation": an.high.get(f"pq:{q.ref}", 0.0), "ambient_max": tmax}}
 
 
-def _unused() -> float:  # keeps math and T_REF imported for derating helpers
-    return math.pi * T_REF

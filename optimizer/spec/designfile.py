@@ -85,7 +85,7 @@ def _check_roles(r: Reader, node: Node, topology: str, parts: list[Placed], n_in
         ro = roles[p.role]
         key = (p.role, p.input)
         if key in seen:
-            r.problem(node, f"parts.{p.ref}", f"role {p.role}" + (f" of input {p.input}" if p.input else "") + f" is already taken by {seen[key]}")
+            r.problem(node.key_lines.get(p.ref, node.line), f"parts.{p.ref}", f"role {p.role}" + (f" of input {p.input}" if p.input else "") + f" is already taken by {seen[key]}")
             ok = False
         seen[key] = p.ref
     for ro in topo.ROLES:
@@ -100,7 +100,7 @@ def _check_roles(r: Reader, node: Node, topology: str, parts: list[Placed], n_in
         if ro.requires:
             for (name, k), ref in seen.items():
                 if name == ro.name and (ro.requires, k) not in seen:
-                    r.problem(node, f"parts.{ref}", f"role {ro.name} needs a part with role {ro.requires}")
+                    r.problem(node.key_lines.get(ref, node.line), f"parts.{ref}", f"role {ro.name} needs a part with role {ro.requires}")
                     ok = False
     # A bypassed resistor without its capacitor is just an emitter resistor: allowed.
     return ok

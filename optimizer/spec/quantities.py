@@ -359,6 +359,7 @@ _UNIT_KINDS = {
     "frequency": ("Hz", "20 Hz or 20 kHz"),
     "time": ("s", "30 s"),
     "power": ("W", "0.25 W, 250 mW or 1/4 W"),
+    "charge": ("Ah", "500 mAh or 1.2 Ah"),
 }
 
 _KINDS = (
@@ -367,6 +368,7 @@ _KINDS = (
     "frequency",
     "time",
     "power",
+    "charge",
     "temperature",
     "decibel",
     "level",
@@ -395,7 +397,8 @@ def parse_quantity(text: object, kind: str) -> float:
         What the user wrote, e.g. ``"9 V"``, ``"-10 dBV"``, ``"35 °C"``.
     kind
         One of ``voltage`` (V), ``current`` (A), ``frequency`` (Hz), ``time`` (s),
-        ``power`` (W), ``temperature`` (returned in kelvin), ``decibel`` (returned in dB),
+        ``power`` (W), ``charge`` (a battery's ``mAh`` or ``Ah``, returned in coulombs),
+        ``temperature`` (returned in kelvin), ``decibel`` (returned in dB),
         ``level`` (a signal amplitude, returned in volts **peak**: ``dBV`` and ``dBu`` are
         rms levels of a sine; plain volts are peak unless marked ``rms``, ``pk`` or ``pp``),
         ``percent`` (returned as a fraction), ``resistance`` or ``capacitance``.
@@ -445,7 +448,8 @@ def parse_quantity(text: object, kind: str) -> float:
     if not m:
         raise _fail(text, kind, _why_not(s, unit), f"write e.g. {example}")
     prefix = m.group(2)
-    return _scaled(m.group(1), _SI_PREFIX[prefix])
+    value = _scaled(m.group(1), _SI_PREFIX[prefix])
+    return value * 3600.0 if kind == "charge" else value
 
 
 def _example(kind: str) -> str:
@@ -463,7 +467,7 @@ def _example(kind: str) -> str:
 def _why_not(s: str, unit: str) -> str:
     if re.fullmatch(_NUM, s):
         return "the unit is missing"
-    m = re.fullmatch(rf"{_NUM}\s*(.*)", s)
+    m = re.fullmatch(rf"(?:\d+\s*/\s*\d+|{_NUM})\s*(.*)", s)
     if m and m.group(1):
         return f"the unit {m.group(1)!r} is not {unit!r}"
     return "it is not a number with a unit"

@@ -103,6 +103,9 @@ def load_yaml_text(text: str, file: str) -> Node:
         mark = err.problem_mark or err.context_mark
         line = mark.line + 1 if mark else 0
         what = err.problem or "the YAML cannot be read"
+        cmark = err.context_mark
+        if err.context and cmark is not None and cmark.line + 1 != line:
+            what += f" ({err.context} that starts on line {cmark.line + 1})"
         raise FileProblems([Problem(file, line, "", f"YAML syntax: {what}")]) from None
     except yaml.YAMLError as err:
         raise FileProblems([Problem(file, 0, "", f"YAML syntax: {err}")]) from None

@@ -255,7 +255,8 @@ class _SpecReader(Reader):
 
     def ordered(self, node: Node, lo: float | None, hi: float | None, shown, what: str = "min") -> bool:
         if lo is not None and hi is not None and lo > hi:
-            self.problem(node, node.path, f"{what} {shown(lo)} is above max {shown(hi)}")
+            at = node.value.get(what) if node.is_map else None
+            self.problem(at or node, at.path if at else node.path, f"{what} {shown(lo)} is above max {shown(hi)}")
             return False
         return True
 
@@ -419,7 +420,7 @@ def _targets(r: _SpecReader, node: Node | None) -> Targets | None:
     snr = _bounded(r, m.get("snr"), "min", "decibel", "snr")
     iso = _bounded(r, m.get("isolation"), "min", "decibel", "isolation")
     if flo is not None and fhi is not None and flo >= fhi:
-        r.problem(m["low_cutoff"], m["low_cutoff"].path, f"low_cutoff {flo:g} Hz is not below high_cutoff {fhi:g} Hz")
+        r.problem(m["low_cutoff"], m["low_cutoff"].path, f"low_cutoff {format_si(flo, 'Hz')} is not below high_cutoff {format_si(fhi, 'Hz')}")
     if snr is not None and hn is None:
         r.problem(m["snr"], m["snr"].path, "needs headroom.nominal: the signal-to-noise ratio is taken at the nominal level")
     if len(r.problems) > n0:

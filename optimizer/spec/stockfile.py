@@ -21,7 +21,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from ..errors import FileProblems, Problem, display_path
-from .quantities import parse_quantity, parse_tolerance, parse_value
+from .quantities import format_code, parse_quantity, parse_tolerance, parse_value
 from .source import Node, Reader, load_yaml
 
 __all__ = ["KINDS", "Stock", "StockItem", "load_stock"]
@@ -83,11 +83,15 @@ class Stock:
 _HFE_NOTE = re.compile(r"\bh[Ff][Ee]\s*[=:]?\s*((?:\d+(?:\.\d+)?)(?:\s*[,;/ ]\s*\d+(?:\.\d+)?)*)")
 
 
-def _parse_row(r: Reader, line: int, fields: dict[str, str], known_transistors: set[str]) -> StockItem | None:
+def _parse_row(
+    r: Reader, line: int, fields: dict[str, str], known_transistors: set[str], lines: dict[str, int] | None = None
+) -> StockItem | None:
+    """One row; ``lines`` gives a field's own line when it differs from the row's (YAML)."""
     n0 = len(r.problems)
+    at = lambda col: (lines or {}).get(col, line)  # noqa: E731
 
     def bad(col: str, msg: str) -> None:
-        r.problem(line, col, msg)
+        r.problem(at(col), col, msg)
 
     kind_text = (fields.get("kind") or "").strip().lower()
     if not kind_text:
@@ -113,7 +117,7 @@ def _parse_row(r: Reader, line: int, fields: dict[str, str], known_transistors: 
             value = raw_value
     else:
         vk = "capacitance" if kind == "capacitor" else "resistance"
-        pv = r.parse(Node(_maybe_number(raw_value, vk), line, "value"), lambda t: parse_value(t, vk))
+        pv = r.parse(Node(_maybe_number(raw_value, vk), at("value"), "value"), lambda t: parse_value(t, vk))
         if pv is not None:
             value, tol_from_code = pv.value, pv.tolerance
     qty_text = (fields.get("quantity") or "").strip()
@@ -126,14 +130,14 @@ def _parse_row(r: Reader, line: int, fields: dict[str, str], known_transistors: 
         qty = int(qty_text)
     tol = tol_from_code
     if fields.get("tolerance", "").strip():
-        tol = r.parse(Node(fields["tolerance"].strip(), line, "tolerance"), parse_tolerance)
+        tol = r.parse(Node(fields["tolerance"].strip(), at("tolerance"), "tolerance"), parse_tolerance)
     rating = None
     if fields.get("rating", "").strip():
         rt = fields["rating"].strip()
         if kind in ("resistor", "pot"):
-            rating = r.parse(Node(rt, line, "rating"), lambda t: parse_quantity(t, "power"))
+            rating = r.parse(Node(rt, at("rating"), "rating"), lambda t: parse_quantity(t, "power"))
         elif kind == "capacitor":
-            rating = r.parse(Node(rt, line, "rating"), lambda t: parse_quantity(t, "voltage"))
+            rating = r.parse(Node(rt, at("rating"), "rating"), lambda t: parse_quantity(t, "voltage"))
         else:
             bad("rating", "a transistor's ratings come from its type; leave this empty")
     ptype = None
@@ -177,11 +181,26 @@ def _parse_row(r: Reader, line: int, fields: dict[str, str], known_transistors: 
     return StockItem(kind, value, qty, tol, rating, ptype, price, note, hfe, line)
 
 
+def _cell(node: Node) -> str:
+    """A YAML field as the text a CSV cell would hold (a list of readings joined by spaces)."""
+    if node.value is None:
+        return ""
+    if node.is_list:
+        return " ".join("" if v.value is None else str(v.plain()) for v in node.value)
+    return str(node.plain())
+
+
 def _maybe_number(text: str, kind: str):
     """CSV cells are text; a bare number is a resistance in ohms (capacitances need units)."""
     if kind == "resistance" and re.fullmatch(r"\d+(\.\d+)?", text):
         return float(text)
     return text
+
+
+def _shown_value(it: StockItem) -> str:
+    if it.kind == "transistor":
+        return str(it.value)
+    return format_code(it.value, "capacitance" if it.kind == "capacitor" else "resistance")
 
 
 def _merge(items: list[StockItem]) -> tuple[list[StockItem], list[str]]:
@@ -192,7 +211,7 @@ def _merge(items: list[StockItem]) -> tuple[list[StockItem], list[str]]:
         if k in out:
             first = out[k]
             warnings.append(
-                f"line {it.line}: same part as line {first.line} ({it.kind} {it.value}); "
+                f"line {it.line}: same part as line {first.line} ({it.kind} {_shown_value(it)}); "
                 f"merged, {first.quantity} + {it.quantity} = {first.quantity + it.quantity} pieces"
             )
             note = "; ".join(x for x in (first.note, it.note) if x)
@@ -217,16 +236,16 @@ def load_stock(path: str | Path, known_transistors: set[str] | None = None) -> S
     if known_transistors is None:
         known_transistors = set(transistor_types())
     r = Reader(shown)
-    rows: list[tuple[int, dict[str, str]]] = []
+    rows: list[tuple[int, dict[str, str], dict[str, int]]] = []
     if p.suffix.lower() in (".yaml", ".yml"):
         root = load_yaml(p)
         items = root.value.get("items") if root.is_map else root
         seq = r.seq(items if isinstance(items, Node) else root, "a list of parts (or a mapping with items:)")
         for n in seq or []:
             m = r.keys(n, COLUMNS, REQUIRED)
-            if m is None:
+            if m is None or any(k not in m for k in REQUIRED):
                 continue
-            rows.append((n.line, {k: ("" if v.value is None else str(v.value)) for k, v in m.items()}))
+            rows.append((n.line, {k: _cell(v) for k, v in m.items()}, {k: v.line for k, v in m.items()}))
     else:
         try:
             text = p.read_text(encoding="utf-8-sig")
@@ -259,12 +278,12 @@ def load_stock(path: str | Path, known_transistors: set[str] | None = None) -> S
             if len(rec) > len(header):
                 r.problem(lineno, "", f"has {len(rec)} cells but the header has {len(header)} (a comma in a value? quote it)")
                 continue
-            rows.append((lineno, dict(zip(header, (c.strip() for c in rec)))))
+            rows.append((lineno, dict(zip(header, (c.strip() for c in rec))), {}))
         if header is None:
             raise FileProblems([Problem(shown, 1, "", "the stock file is empty (it needs a header: kind,value,quantity,...)")])
     parsed = []
-    for lineno, fields in rows:
-        it = _parse_row(r, lineno, fields, known_transistors)
+    for lineno, fields, lines in rows:
+        it = _parse_row(r, lineno, fields, known_transistors, lines)
         if it is not None:
             parsed.append(it)
     r.raise_if_any()
