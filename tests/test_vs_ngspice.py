@@ -67,7 +67,8 @@ MIN_SETTLE = 0.2  # s
 # --- designs ------------------------------------------------------------------------------
 # Each: (design file text, simulation temperature °C, whether to run the large-signal checks).
 # Values are ordinary audio-stage choices; every one biases the transistor well into its
-# active region (VCE of 3 V or more).
+# active region (VCE above 2.5 V). In the level-pot design the pots and summing resistors
+# also load the base at DC (the pots' bottom ends go to ground), hence its stiffer divider.
 
 _HEAD = "topology: divider-ce\nsupply: {supply}\nload: {load}\ntransistor: {transistor}\ninputs: {inputs}\nparts:\n"
 
@@ -148,7 +149,7 @@ DESIGNS: dict[str, tuple[str, float, bool]] = {
     "12V-BC547B-partial-bypass-3in-level-pots": (_design(
         "12 V", "{resistance: 10k}", "BC547B",
         "[{source_resistance: 10k}, {source_resistance: 10k}, {source_resistance: 600}]", """\
-  R1: {role: bias_top, value: 82k}
+  R1: {role: bias_top, value: 33k}
   R2: {role: bias_bottom, value: 15k}
   R3: {role: collector, value: 8k2}
   R4: {role: emitter, value: 220}
@@ -314,7 +315,9 @@ class Stage:
         the exported netlist."""
         results = []
         for k in range(1, self.design.n_inputs + 1):
-            control = [".control"]
+            # A tight convergence tolerance: with the default (1e-3) the device currents
+            # ngspice reports are those of its last Newton iterate, up to 0.2 % off.
+            control = [".options reltol=1e-6", ".control"]
             if k == 1:
                 control += [
                     "op",
@@ -424,9 +427,9 @@ def test_operating_point(stages, name):
         "collector current": (op.ic["Q1"][0], st.sign * sp["ic_q1"]),
         "supply current": (op.supply_current[0], sp["i_supply"]),
     }
-    bad = {k: (a, b, rel(a, b)) for k, (a, b) in pairs.items() if rel(a, b) > TOL_DC}
+    bad = [k for k, (a, b) in pairs.items() if rel(a, b) > TOL_DC]
     report = "; ".join(f"{k}: ours {a:.6g}, ngspice {b:.6g} ({100 * rel(a, b):.3f} %)" for k, (a, b) in pairs.items())
-    assert not bad, f"{name} at {st.temperature_c:g} °C: {report}"
+    assert not bad, f"{name} at {st.temperature_c:g} °C, {', '.join(bad)} disagree: {report}"
 
 
 # --- 1 kHz gain and input impedance --------------------------------------------------------

@@ -415,6 +415,10 @@ def parse_quantity(text: object, kind: str) -> float:
     if isinstance(text, bool) or text is None or isinstance(text, (list, dict)):
         raise _fail(text, kind, "it is not a quantity", _example(kind))
     if isinstance(text, (int, float)):
+        if kind == "percent":
+            raise _fail(text, kind, "the % sign is missing", f"write {text:g} %")
+        if kind == "temperature":
+            raise _fail(text, kind, "the unit is missing", f"write {text:g} °C")
         raise _fail(text, kind, "the unit is missing", _example(kind))
     if not isinstance(text, str):
         raise _fail(text, kind, "it is not a quantity", _example(kind))

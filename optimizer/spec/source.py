@@ -187,10 +187,10 @@ class Reader:
 
     def keys(self, node: Node, allowed: Iterable[str], required: Iterable[str] = ()) -> dict[str, Node] | None:
         """Check a mapping's keys; report unknown ones with a suggestion and missing ones."""
-        m = self.mapping(node)
+        allowed = list(allowed)
+        m = self.mapping(node, "a mapping with the fields " + ", ".join(allowed))
         if m is None:
             return None
-        allowed = list(allowed)
         for key in m:
             if key not in allowed:
                 close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.6)

@@ -165,7 +165,7 @@ def _parse_row(
         hfe_text = mm.group(1) if mm else ""
     if hfe_text:
         if kind != "transistor":
-            bad("hfe", "measured hFE applies to transistors only")
+            bad("hfe", f"{hfe_text!r}: measured hFE applies to transistors only (this row is a {kind})")
         else:
             parts = [p for p in re.split(r"[\s,;/]+", hfe_text) if p]
             try:

@@ -1,0 +1,429 @@
+"""The CP-SAT model of a ``divider-ce`` stage: indices into candidate values, and bounds.
+
+**What the model is.** A *relaxation* of the analysis: for every candidate design its
+margin is never below the margin the analysis finds (tests/test_search_model.py checks this
+on random designs). So when the model says no design reaches a margin, none does — that is
+how ``infeasible`` and ``optimal`` are proved — and every design it proposes is analysed in
+full, ranked by the analysis' margin, and cut from the model when it falls short.
+
+**How.** Each physical relation is written as a *bracket*: inequalities that hold for the
+true value whatever the model leaves unresolved (the base–emitter voltage within an
+emitter-current bucket, the effective beta between BF and BF·(1 + VCB/VA), integer
+rounding, the reactance of the coupling and bypass capacitors at 1 kHz). The solver may pick
+any value inside a bracket, so it can only be optimistic. The figures are evaluated at two
+corners: LO (lowest beta and supply, coldest, resistors at the tolerance ends that lower the
+current and the gain) for the lower limits, and HI (the other ends) for the upper limits.
+
+**Margin.** ``u = S·e^t`` and ``v = S·e^(−t)`` (``u·v ≈ S²``) carry the common margin t:
+a lower limit L becomes ``X ≥ L·u/S`` and an upper limit H becomes ``X ≤ H·v/S``, so
+maximising u maximises the smallest margin (the margins of optimizer.analysis.targets).
+
+Integer units: resistance 0.1 Ω, current 10 nA, voltage 1 nV (V = I·R exactly), conductance
+K/R with K = 10¹⁰ (R in 0.1 Ω), capacitance 1 pF.
+"""
+
+from __future__ import annotations
+
+import math
+
+from ortools.sat.python import cp_model
+
+from ..analysis.network import POT_END_RESISTANCE
+from ..spec.specfile import Spec
+from .bounds import THD_SWING_FACTOR, Corner, device_corner, ie_buckets
+from .candidates import Candidates, RoleSlot
+from .intexpr import Bounded, Builder
+
+__all__ = ["S", "StageModel", "TARGET_NAMES"]
+
+S = 1000  # margin scale: u = S·e^t
+R_U = 10.0  # integer units per ohm
+I_U = 1e8  # per ampere
+V_U = 1e9  # per volt
+K = 10**10  # conductance scale
+C_U = 1e12  # per farad
+T_MIN, T_MAX = -3.0, 3.0
+F_MID = 1000.0
+
+#: The targets the model constrains (names as in optimizer.analysis.targets).
+TARGET_NAMES = ("gain", "headroom", "input impedance", "output impedance", "low cutoff", "supply current")
+
+# Which tolerance end lowers the current and the gain (the LO corner); HI takes the other.
+_LO_DIR = {"bias_top": +1, "bias_bottom": -1, "collector": -1, "emitter": +1, "emitter_bypassed": +1,
+           "input_series": +1, "level_pot": +1, "input_cap": -1, "output_cap": -1, "bypass_cap": -1}
+
+
+def _r(x: float) -> int:
+    return int(round(x * R_U))
+
+
+def _x(c: float) -> float:
+    """Reactance (Ω) of a capacitance at 1 kHz."""
+    return 1.0 / (2 * math.pi * F_MID * c)
+
+
+class StageModel:
+    """The model for one spec, one topology and its candidates.
+
+    Attributes: ``m`` (the CpModel), ``x`` (one-hot booleans per slot), ``tr`` (one per
+    transistor type), ``u``/``v`` (the margin), ``on`` (one literal per target, for
+    explaining infeasibility).
+    """
+
+    def __init__(self, spec: Spec, cands: Candidates):
+        self.spec, self.cands = spec, cands
+        self.m = cp_model.CpModel()
+        self.b = Builder(self.m)
+        self.x: dict[tuple, list] = {}
+        self.slot: dict[tuple, RoleSlot] = {}
+        self.on: dict[str, cp_model.IntVar] = {}
+        self._build()
+
+    # -- helpers --------------------------------------------------------------------------
+    def has(self, role: str, inp=None) -> bool:
+        return (role, inp) in self.x
+
+    def per(self, role: str, f, inp=None) -> Bounded:
+        """Σ f(item)·x over a slot (the constant 0 when the slot does not exist)."""
+        key = (role, inp)
+        if key not in self.x:
+            return self.b.const(0)
+        return self.b.onehot(self.x[key], [f(it) for it in self.slot[key].items])
+
+    def rv(self, role: str, sign: int, inp=None) -> Bounded:
+        """A resistance at a corner's tolerance end (0.1 Ω units)."""
+        d = _LO_DIR.get(role, +1) * sign
+        return self.per(role, lambda it: _r(it.value * (1 + d * it.tolerance)), inp)
+
+    def target(self, name: str):
+        if name not in self.on:
+            self.on[name] = self.m.new_bool_var(f"target[{name}]")
+        return self.on[name]
+
+    def row(self, ct, target: str, also=()) -> None:
+        ct.only_enforce_if([self.target(target), *also])
+
+    # -- the model ------------------------------------------------------------------------
+    def _build(self) -> None:
+        m, b, spec = self.m, self.b, self.spec
+        for s in self.cands.slots:
+            tag = s.role.name + ("" if s.input is None else str(s.input))
+            xs = [m.new_bool_var(f"x[{tag}={i}]") for i in range(len(s.items))]
+            m.add_exactly_one(xs)
+            self.x[s.key] = xs
+            self.slot[s.key] = s
+        self.tr = [m.new_bool_var(f"transistor={nm}") for nm, _ in self.cands.transistors]
+        m.add_exactly_one(self.tr)
+        if self.has("emitter_bypassed") and self.has("bypass_cap"):
+            m.add(self.x[("emitter_bypassed", None)][0] == self.x[("bypass_cap", None)][0])  # both absent or both present
+        umax, vmax = int(S * math.exp(T_MAX)), int(S * math.exp(-T_MIN)) + 1
+        self.u = b.var(int(S * math.exp(T_MIN)), umax, "u")
+        self.v = b.var(int(S * math.exp(-T_MAX)), vmax, "v")
+        uv = b.prod(self.u, self.v, "uv")
+        m.add(uv.expr <= S * S + 2 * S)
+        self._stock()
+        t = spec.targets
+        self.corners = {
+            "LO": Corner("LO", spec.supply.min, spec.ambient.min, "min", +1),
+            "HI": Corner("HI", spec.supply.max, spec.ambient.max, "max", -1),
+        }
+        self.q = {name: self._corner(c) for name, c in self.corners.items()}
+        if t.gain is not None:
+            self._gain()
+        if t.input_impedance_min is not None:
+            self._zin()
+        need = self._need_swing()
+        if need is not None:
+            self._swing(need)
+        if t.supply_current_max is not None:
+            self._current()
+        if t.low_cutoff_max is not None:
+            self._low_cutoff()
+        if t.output_impedance_max is not None:
+            self._zout()
+
+    def _need_swing(self):
+        """The output peak to reach within the THD limit, including each source's overload."""
+        t = self.spec.targets
+        need = t.required_swing()
+        if t.gain is not None:
+            g = 10 ** (t.gain.min / 20)
+            for inp in self.spec.inputs:
+                if inp.max_level is not None:
+                    need = max(need or 0.0, inp.max_level * g)
+        return need
+
+    def _stock(self) -> None:
+        """Stock quantities hold across all designators."""
+        if not self.cands.stock:
+            return
+        uses: dict[int, list] = {}
+        for key, xs in self.x.items():
+            for it, bvar in zip(self.slot[key].items, xs):
+                if it.stock_line is not None:
+                    uses.setdefault(it.stock_line, []).append(bvar)
+        for line, bs in uses.items():
+            self.m.add(sum(bs) <= self.cands.stock_qty[line])
+
+    def _corner(self, c: Corner) -> dict:
+        """Operating point, emitter impedance, input branches and gains at one corner."""
+        m, b, spec = self.m, self.b, self.spec
+        sg, lo_corner = c.tol_sign, c.name == "LO"
+        q: dict = {"corner": c}
+        R1 = b.fix(self.rv("bias_top", sg), f"R1{c.name}")
+        R2 = b.fix(self.rv("bias_bottom", sg), f"R2{c.name}")
+        S12 = b.fix(R1 + R2, f"R12{c.name}")
+        kp = b.div(R2.times(10**6), S12, f"k{c.name}", hi=10**6)  # R2/(R1+R2) in ppm, floor
+        vcc = int(round(c.supply * V_U))
+        VTH = b.var(0, vcc, f"VTH{c.name}")
+        m.add(10**6 * VTH.expr >= vcc * kp.expr - 10**6)
+        m.add(10**6 * VTH.expr <= vcc * kp.expr + vcc + 10**6)
+        R1k = b.prod(R1, kp, f"R1k{c.name}")
+        rth_lo = max(R1.lo * R2.lo // max(R1.hi + R2.hi, 1) - 1, 0)
+        RTH = b.var(rth_lo, R1.hi, f"RTH{c.name}")
+        m.add(10**6 * RTH.expr >= R1k.expr - 10**6)
+        m.add(10**6 * RTH.expr <= R1k.expr + R1.expr + 10**6)
+        RE1 = self.rv("emitter", sg)
+        RE2 = self.rv("emitter_bypassed", sg)
+        RE = b.fix(RE1 + RE2, f"RE{c.name}")
+        edges = ie_buckets()
+        IE = b.var(int(edges[0] * I_U), int(edges[-1] * I_U), f"IE{c.name}")
+        z = [m.new_bool_var(b.name(f"bucket{c.name}")) for _ in range(len(edges) - 1)]
+        m.add_exactly_one(z)
+        m.add(IE.expr >= sum(int(math.floor(edges[i] * I_U)) * z[i] for i in range(len(z))))
+        m.add(IE.expr <= sum(int(math.ceil(edges[i + 1] * I_U)) * z[i] for i in range(len(z))))
+        P1 = b.prod(IE, RE, f"IE.RE{c.name}")
+        P2 = b.prod(IE, RTH, f"IE.RTH{c.name}")
+        devs = [device_corner(tt.model(), c) for _, tt in self.cands.transistors]
+        for lit, dc in zip(self.tr, devs):
+            ba, bb = int(math.floor(dc.beta_lo)), int(math.ceil(dc.beta_hi))
+            va = sum(int(math.floor(dc.vbe_lo[i] * V_U)) * z[i] for i in range(len(z)))
+            vb = sum(int(math.ceil(dc.vbe_hi[i] * V_U)) * z[i] for i in range(len(z)))
+            # IE·(RE + RTH/(β+1)) = VTH − VBE for some β in [ba, bb] and VBE in the bucket.
+            m.add((bb + 1) * P1.expr + P2.expr <= (bb + 1) * (VTH.expr - va + 2)).only_enforce_if(lit)
+            m.add((ba + 1) * P1.expr + P2.expr >= (ba + 1) * (VTH.expr - vb - 2)).only_enforce_if(lit)
+        q.update(R1=R1, R2=R2, S12=S12, VTH=VTH, RTH=RTH, RE1=RE1, RE2=RE2, IE=IE, P1=P1, vcc=vcc, devs=devs)
+        vt = (min if lo_corner else max)(d.vt for d in devs)
+        vt_u = int(round(vt * V_U))
+        q["vt_u"] = vt_u
+        re = b.div(b.const(vt_u), IE, f"re{c.name}")  # VT/IE in 0.1 Ω, floor
+        q["re"] = re
+        # Emitter impedance |re + RE1 + RE2∥C_E| at 1 kHz, in [re + RE1, re + RE1 + min(RE2, X_CE)].
+        if lo_corner:
+            E = b.fix(re + RE1, f"E{c.name}")
+        else:
+            xce = self.per("bypass_cap", lambda it: 0 if it.absent else _r(_x(it.value * (1 - it.tolerance))))
+            e2 = b.var(0, RE2.hi, f"ZE2{c.name}")
+            m.add(e2.expr <= xce.expr)
+            m.add(e2.expr <= RE2.expr)
+            E = b.fix(re + RE1 + e2 + 1, f"E{c.name}")
+        q["E"] = E
+        # Input branches: R' = Rseries + Rs, or Rseries + Rs∥Rpot with the pot at maximum.
+        G, Geff = [], []
+        for k, inp in enumerate(spec.inputs, start=1):
+            rs = max(inp.source_resistance, 1.0)
+            ser = self.rv("input_series", sg, k)
+            if self.has("level_pot", k):
+                d = _LO_DIR["level_pot"] * sg
+                par = self.per("level_pot", lambda it: _r(rs * (it.value * (1 + d * it.tolerance) + POT_END_RESISTANCE)
+                                                          / (rs + it.value * (1 + d * it.tolerance) + 2 * POT_END_RESISTANCE)), k)
+                Rp = b.fix(ser + par, f"Rbr{k}{c.name}")
+                # Only Rpot/(Rs + Rpot) of the source reaches the branch: α/R' = 1/R''.
+                f = self.per("level_pot", lambda it: int(round(1e4 * (1 + rs / (it.value * (1 + d * it.tolerance))))), k)
+                Pf = b.prod(b.fix(ser, f"Rser{k}{c.name}"), f, f"Rser.f{k}{c.name}")
+                Rpp = b.var(max((Pf.lo // 10**4) + _r(rs) - 1, 1), Pf.hi // 10**4 + _r(rs) + 1, f"Reff{k}{c.name}")
+                m.add(10**4 * Rpp.expr >= Pf.expr + 10**4 * _r(rs) - 10**4)
+                m.add(10**4 * Rpp.expr <= Pf.expr + 10**4 * _r(rs) + 10**4)
+                gk = b.div(b.const(K), Rp, f"G{k}{c.name}")
+                ge = b.div(b.const(K), Rpp, f"Geff{k}{c.name}")
+            else:
+                Rp = b.fix(ser + _r(rs), f"Rbr{k}{c.name}")
+                gk = b.div(b.const(K), Rp, f"G{k}{c.name}")
+                ge = gk
+            G.append(gk)
+            Geff.append(ge)
+        q["G"], q["Geff"] = G, Geff
+        RTHp = b.fix(RTH + 1, f"RTHp{c.name}")
+        Grth = b.div(b.const(K), RTHp, f"Grth{c.name}")
+        # Zb = (β+1)·E with β at the end that helps the rows of this corner.
+        bsel = b.onehot(self.tr, [(int(math.ceil(dc.beta_hi)) if lo_corner else int(math.floor(dc.beta_lo))) + 1 for dc in devs])
+        ZB = b.prod(E, b.fix(bsel, f"beta{c.name}"), f"Zb{c.name}")
+        Gzb = b.div(b.const(K), b.fix(ZB + 1, f"Zbp{c.name}"), f"Gzb{c.name}")
+        n = len(spec.inputs)
+        Gsum = Grth + Gzb
+        for g in G:
+            Gsum = Gsum + g
+        Gb = b.fix(Gsum if lo_corner else Gsum + (n + 2), f"Gb{c.name}")
+        q["Gb"], q["Grth"], q["Gzb"] = Gb, Grth, Gzb
+        # Load conductance g_L = 1/RC + 1/RL, plus 1/ro and the output capacitor at HI.
+        g_rl = int(round(K / _r(spec.load.resistance)))
+        dcoll = _LO_DIR["collector"] * sg
+        grc = self.per("collector", lambda it: int(round(K / _r(it.value * (1 + dcoll * it.tolerance)))))
+        if lo_corner:
+            gL = b.fix(grc + g_rl, f"gL{c.name}")
+        else:
+            vaf = min(dc.va for dc in devs)
+            # 1/ro ≤ IC/VAF ≤ IE/VAF; 1 S is 1e9 conductance units, 1 A is 1e8 current units.
+            gro = b.var(0, 10 * IE.hi // int(vaf) + 2, "g_ro")
+            m.add(int(vaf) * gro.expr <= 10 * IE.expr + int(vaf))
+            # The output capacitor adds at most X/(RC·RL): X[Ω]·g_RC·g_RL/1e9.
+            xo = self.per("output_cap", lambda it: int(round(_x(it.value * (1 - it.tolerance)))))
+            Px = b.prod(b.fix(xo, "Xout"), b.fix(grc, "gRC"), "Xout.gRC")
+            xterm = b.var(0, Px.hi * g_rl // 10**9 + 2, "g_cout")
+            m.add(10**9 * xterm.expr >= Px.expr * g_rl - 10**9)
+            m.add(10**9 * xterm.expr <= Px.expr * g_rl + 10**9)
+            gL = b.fix(grc + g_rl + gro + xterm + 1, f"gL{c.name}")
+        q["gL"] = gL
+        PQ = b.prod(E, gL, f"E.gL{c.name}")
+        Q = b.scale_down(PQ, 10**5, up=not lo_corner, base=f"Q{c.name}")
+        Qp = b.fix(Q + 1, f"Qp{c.name}")
+        q["Qp"] = Qp
+        return q
+
+    def _gains_at(self, q: dict) -> list:
+        """Gain of each input at a corner, ×1e4 and without α_F: A = 1e9·Geff_k / (Gb·Q).
+
+        The quotient's domain is capped at 2·10⁸ (a gain of 2·10⁴): beyond that no stage of
+        this kind goes, and the rows that use it never need more.
+        """
+        b, lo_corner = self.b, q["corner"].name == "LO"
+        P5 = b.prod(q["Gb"], q["Qp"], f"Gb.Q{q['corner'].name}")
+        out = []
+        for k, ge in enumerate(q["Geff"], start=1):
+            num = b.fix(((ge + 1) if lo_corner else ge).times(10**9), f"Anum{k}")
+            a = b.var(0, 2 * 10**8, f"A{k}{q['corner'].name}")
+            self.m.add_division_equality(a.expr, num.expr, P5.expr)
+            out.append(a)
+        return out
+
+    # -- targets --------------------------------------------------------------------------
+    def _gain(self) -> None:
+        t = self.spec.targets.gain
+        gmin, gmax = 10 ** (t.min / 20), 10 ** (t.max / 20)
+        lo, hi = self.q["LO"], self.q["HI"]
+        lo["A"], hi["A"] = self._gains_at(lo), self._gains_at(hi)
+        for k in range(len(self.spec.inputs)):
+            for lit, dlo, dhi in zip(self.tr, lo["devs"], hi["devs"]):
+                a_lo = dhi.beta_lo / (dhi.beta_lo + 1)
+                a_hi = dlo.beta_hi / (dlo.beta_hi + 1)
+                # A·α_F ≥ gmin·1e4·u/S at LO;  A·α_F ≤ gmax·1e4·v/S at HI.
+                self.row(self.m.add(int(math.ceil(a_hi * 1e6)) * (lo["A"][k].expr + 1) * S
+                                    >= int(math.floor(gmin * 1e10)) * self.u.expr), "gain", [lit])
+                self.row(self.m.add(int(math.floor(a_lo * 1e6)) * hi["A"][k].expr * S
+                                    <= int(math.ceil(gmax * 1e10)) * self.v.expr), "gain", [lit])
+
+    def _zin(self) -> None:
+        """Zin = Rpot ∥ (Rseries + 1/G_rest) (+ the input capacitor's reactance), at LO."""
+        zmin = self.spec.targets.input_impedance_min
+        m, b, lo = self.m, self.b, self.q["LO"]
+        for k in range(1, len(lo["G"]) + 1):
+            rest = lo["Grth"] + lo["Gzb"] + 1
+            for j, gj in enumerate(lo["G"], start=1):
+                if j != k:
+                    rest = rest + gj
+            rest = b.fix(rest, f"Grest{k}")
+            zrest = b.div(b.const(K), rest, f"Zrest{k}")
+            ser = self.rv("input_series", +1, k)
+            xcin = self.per("input_cap", lambda it: _r(_x(it.value * (1 - it.tolerance))), k)
+            inner = ser + zrest + xcin + 2
+            if self.has("level_pot", k):
+                yin = b.div(b.const(K), b.fix(inner, f"Zinner{k}"), f"Yinner{k}")
+                gpot = self.per("level_pot", lambda it: int(math.floor(K / _r(it.value * (1 + it.tolerance) + 2 * POT_END_RESISTANCE))), k)
+                self.row(m.add((gpot.expr + yin.expr) * S <= int(math.ceil(K / _r(zmin))) * self.v.expr), "input impedance")
+            else:
+                self.row(m.add(inner.expr * S >= _r(zmin) * self.u.expr), "input impedance")
+
+    def _swing(self, need: float) -> None:
+        """Swing at the THD limit: bounded above by cutoff, saturation and distortion."""
+        m, b = self.m, self.b
+        lo, hi = self.q["LO"], self.q["HI"]
+        need_u = need * V_U
+        thd = self.spec.targets.distortion_max
+        rl = self.spec.load.resistance
+        IE = lo["IE"]
+        # r_L = RC∥RL with RC at its low end.
+        rL = b.fix(self.per("collector", lambda it: _r(it.value * (1 - it.tolerance) * rl / (it.value * (1 - it.tolerance) + rl)) + 1), "rL")
+        Y1 = b.prod(IE, rL, "IE.rL")  # IC·rL bound, nV
+        # Cutoff: the collector can rise at most IC·rL.
+        self.row(m.add(Y1.expr * S >= int(math.floor(need_u)) * self.u.expr), "headroom")
+        # Distortion: swing ≤ κ·4·THD·(1 + gm·(RE1 + Rs'/(β+1)))·IC·rL, with Rs' ≤ R2.
+        bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
+        r2 = self.rv("bias_bottom", -1)
+        rsb = b.var(0, r2.hi // bmin + 1, "Rs/beta")
+        m.add(bmin * rsb.expr <= r2.expr + bmin)
+        Dg = b.fix(lo["RE1"] + rsb, "Rdeg")
+        P3 = b.prod(IE, Dg, "IE.Rdeg")
+        X1 = b.scale_down(P3 + lo["vt_u"], 10**5, up=True, base="X1")
+        Y1s = b.scale_down(Y1, 10**5, up=True, base="Y1s")
+        XY = b.prod(X1, Y1s, "X1.Y1")
+        kap = THD_SWING_FACTOR * 4 * thd
+        coef = int(math.floor(need_u * lo["vt_u"] / (kap * 1e10 * S)))
+        self.row(m.add(XY.expr >= coef * self.u.expr), "headroom")
+        # Saturation: swing ≤ VC − VE = VCC − IC·RC − IE·RE, at both corners.
+        for qd, sign in ((lo, +1), (hi, -1)):
+            rc = b.fix(self.per("collector", lambda it, s=sign: _r(it.value * (1 - s * it.tolerance))), f"RCsat{qd['corner'].name}")
+            Pc = b.prod(qd["IE"], rc, f"IE.RC{qd['corner'].name}")
+            amin = int(math.floor(1000 * min(d.alpha_lo for d in qd["devs"])))
+            Pca = b.var(0, Pc.hi * amin // 1000 + 1, f"IC.RC{qd['corner'].name}")
+            m.add(1000 * Pca.expr <= amin * Pc.expr)
+            m.add(1000 * Pca.expr >= amin * Pc.expr - 1000)
+            self.row(m.add((qd["vcc"] - Pca.expr - qd["P1"].expr) * S >= int(math.floor(need_u)) * self.u.expr), "headroom")
+
+    def _current(self) -> None:
+        """Supply current ≥ α·IE + VCC/(R1 + R2) at HI (the divider carries at least that)."""
+        imax = self.spec.targets.supply_current_max
+        hi = self.q["HI"]
+        idiv = self.b.div(self.b.const(hi["vcc"]), hi["S12"], "Idiv")
+        amin = int(math.floor(1000 * min(d.alpha_lo for d in hi["devs"])))
+        self.row(self.m.add((amin * hi["IE"].expr + 1000 * idiv.expr) * S
+                            <= int(math.ceil(imax * I_U * 1000)) * self.v.expr), "supply current")
+
+    def _cap_rows(self, role, inp, rbounds, also=()) -> None:
+        """C·R ≥ 1/(2π·fmax)·e^t for each capacitor choice and each resistance bound R."""
+        fmax = self.spec.targets.low_cutoff_max
+        kf = C_U * R_U / (2 * math.pi * fmax)
+        D = 1000
+        for it, bvar in zip(self.slot[(role, inp)].items, self.x[(role, inp)]):
+            if it.absent:
+                continue
+            coef = int(math.floor(D * kf / (S * it.value * (1 - it.tolerance) * C_U)))
+            for rb in rbounds:
+                self.row(self.m.add(D * rb.expr >= coef * self.u.expr), "low cutoff", [bvar, *also])
+
+    def _low_cutoff(self) -> None:
+        """Each capacitor's own corner is a lower bound of the whole response's corner."""
+        m, b, lo = self.m, self.b, self.q["LO"]
+        r1, r2 = self.rv("bias_top", -1), self.rv("bias_bottom", -1)
+        for k, inp in enumerate(self.spec.inputs, start=1):
+            rs = _r(max(inp.source_resistance, 1.0))
+            ser = self.rv("input_series", -1, k)
+            bounds = [ser + r1 + rs, ser + r2 + rs]  # Zin ≤ Rseries + RTH ≤ Rseries + min(R1, R2)
+            if self.has("level_pot", k):
+                bounds.append(self.per("level_pot", lambda it: _r(it.value * (1 + it.tolerance) + 2 * POT_END_RESISTANCE), k) + rs)
+            self._cap_rows("input_cap", k, bounds)
+        self._cap_rows("output_cap", None, [self.rv("collector", -1) + _r(self.spec.load.resistance)])
+        if self.has("bypass_cap"):
+            # The bypass section alone falls 3 dB above 1/(2π·RE2·CE) once RE2 is at least the
+            # resistance in series with it, re + RE1 + Rs'/(β+1) (bounded above by 1.2·re + ...).
+            bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
+            re2lo = self.rv("emitter_bypassed", +1)
+            a_up = b.var(0, 10 * (lo["re"].hi + 2) + lo["RE1"].hi * 10 + r2.hi + 10, "a_up")
+            m.add(10 * bmin * a_up.expr >= 12 * bmin * (lo["re"].expr + 1) + 10 * bmin * lo["RE1"].expr + 10 * r2.expr)
+            deep = m.new_bool_var("bypass_deep")
+            m.add(re2lo.expr - a_up.expr <= -1).only_enforce_if(~deep)
+            self._cap_rows("bypass_cap", None, [self.rv("emitter_bypassed", -1)], [deep])
+
+    def _zout(self) -> None:
+        """Zout ≥ RC∥ro ≥ RC·VAF/(VAF + VCC) (ro ≥ VAF/IC and IC·RC ≤ VCC)."""
+        zmax = self.spec.targets.output_impedance_max
+        vaf = min(tt.model().va for _, tt in self.cands.transistors)
+        f = vaf / (vaf + self.spec.supply.max)
+        zo = self.per("collector", lambda it: _r(it.value * (1 - it.tolerance) * f))
+        self.row(self.m.add(zo.expr * S <= _r(zmax) * self.v.expr), "output impedance")
+
+    # -- decoding -------------------------------------------------------------------------
+    def chosen(self, value) -> tuple[dict, int]:
+        """(slot key → item index, transistor index) from a solver's ``value`` function."""
+        pick = {key: next(i for i, bvar in enumerate(xs) if value(bvar)) for key, xs in self.x.items()}
+        tr = next(i for i, bvar in enumerate(self.tr) if value(bvar))
+        return pick, tr
