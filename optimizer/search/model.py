@@ -30,7 +30,7 @@ from ortools.sat.python import cp_model
 
 from ..analysis.network import POT_END_RESISTANCE
 from ..spec.specfile import Spec
-from .bounds import THD_SWING_FACTOR, Corner, device_corner, ie_buckets
+from .bounds import SAT_KNEE, THD_SWING_FACTOR, Corner, device_corner, ie_buckets
 from .candidates import Candidates, RoleSlot
 from .intexpr import Bounded, Builder
 
@@ -44,13 +44,65 @@ K = 10**10  # conductance scale
 C_U = 1e12  # per farad
 T_MIN, T_MAX = -3.0, 3.0
 F_MID = 1000.0
+#: Sizing rule of the coupling and bypass capacitors: at 1 kHz each one's reactance is at most
+#: ρ = 1/10 of the resistance it works into (common practice, no source: the usual rule asks
+#: the same at the lowest frequency). ρ² = RHO_NUM/RHO_DEN.
+RHO = 0.1
+RHO_NUM, RHO_DEN = 1, 100
 
 #: The targets the model constrains (names as in optimizer.analysis.targets).
 TARGET_NAMES = ("gain", "headroom", "input impedance", "output impedance", "low cutoff", "supply current")
 
-# Which tolerance end lowers the current and the gain (the LO corner); HI takes the other.
-_LO_DIR = {"bias_top": +1, "bias_bottom": -1, "collector": -1, "emitter": +1, "emitter_bypassed": +1,
-           "input_series": +1, "level_pot": +1, "input_cap": -1, "output_cap": -1, "bypass_cap": -1}
+# Tolerance ends at each corner (+1: value·(1 + tol), −1: value·(1 − tol)). LO lowers the
+# current and the gain; HI raises the gain (a larger RTH loads the base less) and the current.
+DIRS = {
+    "LO": {"bias_top": +1, "bias_bottom": -1, "collector": -1, "emitter": +1, "emitter_bypassed": +1,
+           "input_series": +1, "level_pot": +1},
+    "HI": {"bias_top": +1, "bias_bottom": +1, "collector": +1, "emitter": -1, "emitter_bypassed": -1,
+           "input_series": -1, "level_pot": -1},
+}
+
+
+RHO_INV = 10  # 1/ρ
+
+
+def bypass_re_min(spec: Spec) -> float:
+    """The smallest emitter resistance re = VT/IE any design of the spec can have (Ω)."""
+    from ..physics import thermal_voltage
+
+    imax = spec.targets.supply_current_max or 20e-3
+    return float(thermal_voltage(spec.ambient.min)) / imax
+
+
+def sizing_rule_ok(spec: Spec, parts: dict, sources: list[float]) -> bool:
+    """The capacitor sizing rule the model imposes, on a design's values.
+
+    ``parts`` maps (role, input) → (value, tolerance). Coupling capacitors: X(1 kHz) at the
+    capacitor's low end ≤ ρ × the resistance it works into at the resistors' low ends
+    (Rs + Rseries, or Rs + half the smaller of Rseries and the pot); the output capacitor
+    into the load; the bypass capacitor into RE1 + the smallest re.
+    """
+    def lo(key):
+        v, t = parts[key]
+        return v * (1 - t)
+
+    def x_lo(key):
+        return _x(lo(key))
+
+    for k, rs in enumerate(sources, start=1):
+        rs = max(rs, 1.0)
+        into = rs + lo(("input_series", k))
+        if ("level_pot", k) in parts:
+            into = rs + min(lo(("input_series", k)), lo(("level_pot", k))) / 2
+        if RHO_INV * x_lo(("input_cap", k)) > into * (1 + 1e-6):
+            return False
+    if RHO_INV * x_lo(("output_cap", None)) > spec.load.resistance * (1 + 1e-6):
+        return False
+    if ("bypass_cap", None) in parts:
+        re1 = lo(("emitter", None)) if ("emitter", None) in parts else 0.0
+        if RHO_INV * x_lo(("bypass_cap", None)) > (re1 + bypass_re_min(spec)) * (1 + 1e-6):
+            return False
+    return True
 
 
 def _r(x: float) -> int:
@@ -90,9 +142,8 @@ class StageModel:
             return self.b.const(0)
         return self.b.onehot(self.x[key], [f(it) for it in self.slot[key].items])
 
-    def rv(self, role: str, sign: int, inp=None) -> Bounded:
-        """A resistance at a corner's tolerance end (0.1 Ω units)."""
-        d = _LO_DIR.get(role, +1) * sign
+    def rv(self, role: str, d: int, inp=None) -> Bounded:
+        """A resistance at one tolerance end (d = +1 or −1), in 0.1 Ω units."""
         return self.per(role, lambda it: _r(it.value * (1 + d * it.tolerance)), inp)
 
     def target(self, name: str):
@@ -122,6 +173,7 @@ class StageModel:
         uv = b.prod(self.u, self.v, "uv")
         m.add(uv.expr <= S * S + 2 * S)
         self._stock()
+        self._sizing_rule()
         t = spec.targets
         self.corners = {
             "LO": Corner("LO", spec.supply.min, spec.ambient.min, "min", +1),
@@ -141,6 +193,35 @@ class StageModel:
             self._low_cutoff()
         if t.output_impedance_max is not None:
             self._zout()
+
+    def _sizing_rule(self) -> None:
+        """Coupling capacitors: X(1 kHz) ≤ ρ·R at the tolerance ends (see RHO)."""
+        m = self.m
+        for k, inp in enumerate(self.spec.inputs, start=1):
+            rs = _r(max(inp.source_resistance, 1.0))
+            rser = self.rv("input_series", -1, k)
+            # Twice the resistance the capacitor works into is at least these (with a pot, the
+            # track in parallel with the series resistor: at least half the smaller).
+            into2 = [(rser + rs).times(2)]
+            if self.has("level_pot", k):
+                rp = self.per("level_pot", lambda it: _r(it.value * (1 - it.tolerance)), k)
+                into2 = [rser + 2 * rs, rp + 2 * rs]
+            for it, bvar in zip(self.slot[("input_cap", k)].items, self.x[("input_cap", k)]):
+                xi = _r(_x(it.value * (1 - it.tolerance)))
+                for r_in in into2:
+                    m.add(2 * RHO_INV * xi <= r_in.expr).only_enforce_if(bvar)
+        rl = _r(self.spec.load.resistance)
+        for it, bvar in zip(self.slot[("output_cap", None)].items, self.x[("output_cap", None)]):
+            if RHO_INV * _r(_x(it.value * (1 - it.tolerance))) > rl:
+                m.add(bvar == 0)
+        if self.has("bypass_cap"):
+            # The bypass capacitor works into RE1 + re; re is at least VT/I_max.
+            re_min = _r(bypass_re_min(self.spec))
+            re1 = self.rv("emitter", -1)
+            for it, bvar in zip(self.slot[("bypass_cap", None)].items, self.x[("bypass_cap", None)]):
+                if it.absent:
+                    continue
+                m.add(RHO_INV * _r(_x(it.value * (1 - it.tolerance))) <= re1.expr + re_min).only_enforce_if(bvar)
 
     def _need_swing(self):
         """The output peak to reach within the THD limit, including each source's overload."""
@@ -168,10 +249,10 @@ class StageModel:
     def _corner(self, c: Corner) -> dict:
         """Operating point, emitter impedance, input branches and gains at one corner."""
         m, b, spec = self.m, self.b, self.spec
-        sg, lo_corner = c.tol_sign, c.name == "LO"
+        dirs, lo_corner = DIRS[c.name], c.name == "LO"
         q: dict = {"corner": c}
-        R1 = b.fix(self.rv("bias_top", sg), f"R1{c.name}")
-        R2 = b.fix(self.rv("bias_bottom", sg), f"R2{c.name}")
+        R1 = b.fix(self.rv("bias_top", dirs["bias_top"]), f"R1{c.name}")
+        R2 = b.fix(self.rv("bias_bottom", dirs["bias_bottom"]), f"R2{c.name}")
         S12 = b.fix(R1 + R2, f"R12{c.name}")
         kp = b.div(R2.times(10**6), S12, f"k{c.name}", hi=10**6)  # R2/(R1+R2) in ppm, floor
         vcc = int(round(c.supply * V_U))
@@ -183,8 +264,8 @@ class StageModel:
         RTH = b.var(rth_lo, R1.hi, f"RTH{c.name}")
         m.add(10**6 * RTH.expr >= R1k.expr - 10**6)
         m.add(10**6 * RTH.expr <= R1k.expr + R1.expr + 10**6)
-        RE1 = self.rv("emitter", sg)
-        RE2 = self.rv("emitter_bypassed", sg)
+        RE1 = self.rv("emitter", dirs["emitter"])
+        RE2 = self.rv("emitter_bypassed", dirs["emitter_bypassed"])
         RE = b.fix(RE1 + RE2, f"RE{c.name}")
         edges = ie_buckets()
         IE = b.var(int(edges[0] * I_U), int(edges[-1] * I_U), f"IE{c.name}")
@@ -208,23 +289,20 @@ class StageModel:
         q["vt_u"] = vt_u
         re = b.div(b.const(vt_u), IE, f"re{c.name}")  # VT/IE in 0.1 Ω, floor
         q["re"] = re
-        # Emitter impedance |re + RE1 + RE2∥C_E| at 1 kHz, in [re + RE1, re + RE1 + min(RE2, X_CE)].
-        if lo_corner:
-            E = b.fix(re + RE1, f"E{c.name}")
-        else:
-            xce = self.per("bypass_cap", lambda it: 0 if it.absent else _r(_x(it.value * (1 - it.tolerance))))
-            e2 = b.var(0, RE2.hi, f"ZE2{c.name}")
-            m.add(e2.expr <= xce.expr)
-            m.add(e2.expr <= RE2.expr)
-            E = b.fix(re + RE1 + e2 + 1, f"E{c.name}")
-        q["E"] = E
-        # Input branches: R' = Rseries + Rs, or Rseries + Rs∥Rpot with the pot at maximum.
+        # Emitter impedance |a + z| at 1 kHz, a = re + RE1, z = RE2∥C_E = r − j·y:
+        # x = a + r ≤ |a + z| = √(x² + y²) ≤ min(x + y, x + y²/(2x)) (see _emitter).
+        a = b.fix(re + RE1, f"a{c.name}")
+        x_lo, E_up = self._emitter(a, dirs, c.name)
+        E = x_lo if lo_corner else E_up
+        q["E"], q["a"], q["x"], q["E_up"] = E, a, x_lo, E_up
+        # Input branches: R' = Rseries + Rs, or Rseries + Rs∥Rpot with the pot at maximum;
+        # in series with the coupling capacitor's reactance X (at most X_k at 1 kHz).
         G, Geff = [], []
         for k, inp in enumerate(spec.inputs, start=1):
             rs = max(inp.source_resistance, 1.0)
-            ser = self.rv("input_series", sg, k)
+            ser = self.rv("input_series", dirs["input_series"], k)
             if self.has("level_pot", k):
-                d = _LO_DIR["level_pot"] * sg
+                d = dirs["level_pot"]
                 par = self.per("level_pot", lambda it: _r(rs * (it.value * (1 + d * it.tolerance) + POT_END_RESISTANCE)
                                                           / (rs + it.value * (1 + d * it.tolerance) + 2 * POT_END_RESISTANCE)), k)
                 Rp = b.fix(ser + par, f"Rbr{k}{c.name}")
@@ -234,22 +312,44 @@ class StageModel:
                 Rpp = b.var(max((Pf.lo // 10**4) + _r(rs) - 1, 1), Pf.hi // 10**4 + _r(rs) + 1, f"Reff{k}{c.name}")
                 m.add(10**4 * Rpp.expr >= Pf.expr + 10**4 * _r(rs) - 10**4)
                 m.add(10**4 * Rpp.expr <= Pf.expr + 10**4 * _r(rs) + 10**4)
-                gk = b.div(b.const(K), Rp, f"G{k}{c.name}")
-                ge = b.div(b.const(K), Rpp, f"Geff{k}{c.name}")
             else:
                 Rp = b.fix(ser + _r(rs), f"Rbr{k}{c.name}")
+                Rpp = Rp
+            # With the sizing rule X ≤ ρ·R at 1 kHz: ρ-corrections are small and linear.
+            if lo_corner:
+                # |1/(R + jX)| ≤ 1/R for the source's share; the base node's load is at least
+                # Re(1/(R + jX)) ≥ (1/R)/(1 + ρ²).
+                ge_full = b.div(b.const(K), Rp, f"G{k}{c.name}")
+                gk = b.var(0, ge_full.hi, f"Gre{k}{c.name}")
+                m.add(RHO_DEN * gk.expr >= RHO_DEN * ge_full.expr - RHO_NUM * ge_full.expr - RHO_DEN)
+                m.add(gk.expr <= ge_full.expr)
+                ge = ge_full if Rpp is Rp else b.div(b.const(K), Rpp, f"Geff{k}{c.name}")
+            else:
+                # |1/(R + jX)| ≥ (1/R)/√(1 + ρ²) ≥ (1/R)(1 − ρ²/2) for the source's share.
                 gk = b.div(b.const(K), Rp, f"G{k}{c.name}")
-                ge = gk
+                ge_full = gk if Rpp is Rp else b.div(b.const(K), Rpp, f"Geff{k}{c.name}")
+                ge = b.var(0, ge_full.hi, f"Geffx{k}{c.name}")
+                m.add(2 * RHO_DEN * ge.expr >= 2 * RHO_DEN * ge_full.expr - RHO_NUM * ge_full.expr - 2 * RHO_DEN)
+                m.add(ge.expr <= ge_full.expr)
             G.append(gk)
             Geff.append(ge)
         q["G"], q["Geff"] = G, Geff
         RTHp = b.fix(RTH + 1, f"RTHp{c.name}")
         Grth = b.div(b.const(K), RTHp, f"Grth{c.name}")
-        # Zb = (β+1)·E with β at the end that helps the rows of this corner.
-        bsel = b.onehot(self.tr, [(int(math.ceil(dc.beta_hi)) if lo_corner else int(math.floor(dc.beta_lo))) + 1 for dc in devs])
-        ZB = b.prod(E, b.fix(bsel, f"beta{c.name}"), f"Zb{c.name}")
-        Gzb = b.div(b.const(K), b.fix(ZB + 1, f"Zbp{c.name}"), f"Gzb{c.name}")
+        # The transistor's input, 1/Zb with Zb = (β+1)(a + z). HI: |1/Zb| ≤ 1/((β+1)a).
+        # LO: Re(1/Zb) = Re(a + z)/((β+1)|a + z|²) ≥ a/((β+1)·E_up²).
         n = len(spec.inputs)
+        if lo_corner:
+            bb1 = b.fix(b.onehot(self.tr, [int(math.ceil(dc.beta_hi)) + 1 for dc in devs]), "beta+1 LO")
+            BE = b.prod(E_up, bb1, "(b+1)Eup")
+            t1 = b.div(b.const(K), b.fix(BE + 1, "(b+1)Eup+1"), "K/(b+1)Eup")
+            t2 = b.prod(t1, x_lo, "K.x/(b+1)Eup")
+            # a ≤ E_up, so the quotient never exceeds K/((β+1)·a) ≤ K/((β+1)·a_min).
+            Gzb = b.div(t2, b.fix(E_up + 1, "Eup+1"), f"Gzb{c.name}", hi=K // max(bb1.lo * max(x_lo.lo, 1), 1) + 1)
+        else:
+            ba1 = b.fix(b.onehot(self.tr, [int(math.floor(dc.beta_lo)) + 1 for dc in devs]), "beta+1 HI")
+            ZB = b.prod(x_lo, ba1, f"Zb{c.name}")
+            Gzb = b.fix(b.div(b.const(K), b.fix(ZB + 1, f"Zbp{c.name}"), f"Gzb0{c.name}") + 1, f"Gzb{c.name}")
         Gsum = Grth + Gzb
         for g in G:
             Gsum = Gsum + g
@@ -257,7 +357,7 @@ class StageModel:
         q["Gb"], q["Grth"], q["Gzb"] = Gb, Grth, Gzb
         # Load conductance g_L = 1/RC + 1/RL, plus 1/ro and the output capacitor at HI.
         g_rl = int(round(K / _r(spec.load.resistance)))
-        dcoll = _LO_DIR["collector"] * sg
+        dcoll = dirs["collector"]
         grc = self.per("collector", lambda it: int(round(K / _r(it.value * (1 + dcoll * it.tolerance)))))
         if lo_corner:
             gL = b.fix(grc + g_rl, f"gL{c.name}")
@@ -266,19 +366,74 @@ class StageModel:
             # 1/ro ≤ IC/VAF ≤ IE/VAF; 1 S is 1e9 conductance units, 1 A is 1e8 current units.
             gro = b.var(0, 10 * IE.hi // int(vaf) + 2, "g_ro")
             m.add(int(vaf) * gro.expr <= 10 * IE.expr + int(vaf))
-            # The output capacitor adds at most X/(RC·RL): X[Ω]·g_RC·g_RL/1e9.
-            xo = self.per("output_cap", lambda it: int(round(_x(it.value * (1 - it.tolerance)))))
-            Px = b.prod(b.fix(xo, "Xout"), b.fix(grc, "gRC"), "Xout.gRC")
-            xterm = b.var(0, Px.hi * g_rl // 10**9 + 2, "g_cout")
-            m.add(10**9 * xterm.expr >= Px.expr * g_rl - 10**9)
-            m.add(10**9 * xterm.expr <= Px.expr * g_rl + 10**9)
-            gL = b.fix(grc + g_rl + gro + xterm + 1, f"gL{c.name}")
+            # The output capacitor (X ≤ ρ·RL by the sizing rule) lowers |v_out| by at most
+            # a factor 1/√(1 + ρ²): g_L·(1 + ρ²/2).
+            base = b.fix(grc + g_rl + gro + 1, "gL0")
+            gL = b.var(base.lo, base.hi + base.hi * RHO_NUM // (2 * RHO_DEN) + 2, f"gL{c.name}")
+            m.add(2 * RHO_DEN * gL.expr <= 2 * RHO_DEN * base.expr + RHO_NUM * base.expr + 2 * RHO_DEN)
+            m.add(gL.expr >= base.expr)
         q["gL"] = gL
         PQ = b.prod(E, gL, f"E.gL{c.name}")
         Q = b.scale_down(PQ, 10**5, up=not lo_corner, base=f"Q{c.name}")
         Qp = b.fix(Q + 1, f"Qp{c.name}")
         q["Qp"] = Qp
         return q
+
+    def _emitter(self, a: Bounded, dirs: dict, cname: str) -> tuple[Bounded, Bounded]:
+        """(x, E_up): x = a + Re z ≤ |a + z| ≤ E_up, z = RE2∥C_E at 1 kHz.
+
+        For each (RE2, C_E) pair, Re z, Im z and Im² z are bracketed over the capacitor's
+        tolerance (rows per capacitor choice, linear in RE2's choice).
+        """
+        b, m = self.b, self.m
+        if not self.has("bypass_cap"):
+            return a, a
+        re2_items = self.slot[("emitter_bypassed", None)].items
+        re2_x = self.x[("emitter_bypassed", None)]
+        d = dirs["emitter_bypassed"]
+        rows = []
+        hi_r = hi_y = hi_y2 = 0
+        for it_c, x_c in zip(self.slot[("bypass_cap", None)].items, self.x[("bypass_cap", None)]):
+            if it_c.absent:
+                continue
+            xs = (_x(it_c.value * (1 + it_c.tolerance)), _x(it_c.value * (1 - it_c.tolerance)))  # X range
+            rr_lo, rr_hi, yy_hi, y2_lo, y2_hi = [], [], [], [], []
+            for it_r in re2_items:
+                if it_r.absent:
+                    for lst in (rr_lo, rr_hi, yy_hi, y2_lo, y2_hi):
+                        lst.append(0)
+                    continue
+                R = it_r.value * (1 + d * it_r.tolerance)
+                re_z = [R * X * X / (R * R + X * X) for X in xs]
+                im_z = [R * R * X / (R * R + X * X) for X in xs]
+                y_max = R / 2 if xs[0] <= R <= xs[1] else max(im_z)
+                rr_lo.append(int(math.floor(R_U * min(re_z))))
+                rr_hi.append(int(math.ceil(R_U * max(re_z))) + 1)
+                yy_hi.append(int(math.ceil(R_U * y_max)) + 1)
+                y2_lo.append(int(math.floor(R_U**2 * min(im_z) ** 2)))
+                y2_hi.append(int(math.ceil(R_U**2 * y_max**2)) + 1)
+            hi_r, hi_y, hi_y2 = max(hi_r, max(rr_hi)), max(hi_y, max(yy_hi)), max(hi_y2, max(y2_hi))
+            rows.append((x_c, rr_lo, rr_hi, yy_hi, y2_lo, y2_hi))
+        r = b.var(0, hi_r, f"Re_z{cname}")
+        y = b.var(0, hi_y, f"Im_z{cname}")
+        y2 = b.var(0, hi_y2, f"Im2_z{cname}")
+        lin = lambda vals: sum(v * xx for v, xx in zip(vals, re2_x) if v)  # noqa: E731
+        for x_c, rr_lo, rr_hi, yy_hi, y2_lo, y2_hi in rows:
+            m.add(r.expr >= lin(rr_lo)).only_enforce_if(x_c)
+            m.add(r.expr <= lin(rr_hi)).only_enforce_if(x_c)
+            m.add(y.expr <= lin(yy_hi)).only_enforce_if(x_c)
+            m.add(y2.expr >= lin(y2_lo)).only_enforce_if(x_c)
+            m.add(y2.expr <= lin(y2_hi)).only_enforce_if(x_c)
+        absent = self.x[("bypass_cap", None)][0]
+        for v in (r, y, y2):
+            m.add(v.expr == 0).only_enforce_if(absent)
+        x = b.fix(a + r, f"x{cname}")
+        q = b.div(y2, b.fix(x.times(2) + 1, f"2x{cname}"), f"y2/2x{cname}")
+        E_up = b.var(x.lo, x.hi + min(y.hi, q.hi) + 2, f"Eup{cname}")
+        m.add(E_up.expr >= x.expr)
+        m.add(E_up.expr <= x.expr + y.expr + 1)
+        m.add(E_up.expr <= x.expr + q.expr + 2)
+        return x, E_up
 
     def _gains_at(self, q: dict) -> list:
         """Gain of each input at a corner, ×1e4 and without α_F: A = 1e9·Geff_k / (Gb·Q).
@@ -348,7 +503,7 @@ class StageModel:
         self.row(m.add(Y1.expr * S >= int(math.floor(need_u)) * self.u.expr), "headroom")
         # Distortion: swing ≤ κ·4·THD·(1 + gm·(RE1 + Rs'/(β+1)))·IC·rL, with Rs' ≤ R2.
         bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
-        r2 = self.rv("bias_bottom", -1)
+        r2 = self.rv("bias_bottom", +1)
         rsb = b.var(0, r2.hi // bmin + 1, "Rs/beta")
         m.add(bmin * rsb.expr <= r2.expr + bmin)
         Dg = b.fix(lo["RE1"] + rsb, "Rdeg")
@@ -359,15 +514,29 @@ class StageModel:
         kap = THD_SWING_FACTOR * 4 * thd
         coef = int(math.floor(need_u * lo["vt_u"] / (kap * 1e10 * S)))
         self.row(m.add(XY.expr >= coef * self.u.expr), "headroom")
-        # Saturation: swing ≤ VC − VE = VCC − IC·RC − IE·RE, at both corners.
-        for qd, sign in ((lo, +1), (hi, -1)):
-            rc = b.fix(self.per("collector", lambda it, s=sign: _r(it.value * (1 - s * it.tolerance))), f"RCsat{qd['corner'].name}")
-            Pc = b.prod(qd["IE"], rc, f"IE.RC{qd['corner'].name}")
+        # Saturation: as the output falls by v, the collector falls by v and the emitter rises
+        # by v·RE1/rL, so VCE reaches the knee V_K when v = (VCE − V_K)·rL/(rL + RE1), with
+        # VCE = VCC − IC·RC − IE·RE; at both corners.
+        for qd in (lo, hi):
+            cn = qd["corner"].name
+            dcol = DIRS[cn]["collector"]
+            rc = b.fix(self.per("collector", lambda it, s=dcol: _r(it.value * (1 + s * it.tolerance))), f"RCsat{cn}")
+            Pc = b.prod(qd["IE"], rc, f"IE.RC{cn}")
             amin = int(math.floor(1000 * min(d.alpha_lo for d in qd["devs"])))
-            Pca = b.var(0, Pc.hi * amin // 1000 + 1, f"IC.RC{qd['corner'].name}")
+            Pca = b.var(0, Pc.hi * amin // 1000 + 1, f"IC.RC{cn}")
             m.add(1000 * Pca.expr <= amin * Pc.expr)
             m.add(1000 * Pca.expr >= amin * Pc.expr - 1000)
-            self.row(m.add((qd["vcc"] - Pca.expr - qd["P1"].expr) * S >= int(math.floor(need_u)) * self.u.expr), "headroom")
+            vce = b.var(0, qd["vcc"], f"VCE{cn}")
+            m.add(vce.expr <= qd["vcc"] - Pca.expr - qd["P1"].expr + 1)
+            vk = int(SAT_KNEE * V_U)
+            vce_k = b.var(0, qd["vcc"], f"VCE-knee{cn}")
+            m.add(vce_k.expr <= vce.expr - vk)
+            rl_c = b.fix(self.per("collector", lambda it, s=dcol: _r(it.value * (1 + s * it.tolerance) * rl
+                                                                      / (it.value * (1 + s * it.tolerance) + rl)) + 1), f"rL{cn}")
+            frac = b.div(rl_c.times(10**4), b.fix(rl_c + qd["RE1"], f"rL+RE1{cn}"), f"rL/(rL+RE1){cn}", hi=10**4)
+            Ps = b.prod(b.scale_down(vce_k, 10**3, up=True, base=f"VCEk/1e3{cn}"), b.fix(frac + 1, f"frac+{cn}"), f"sat{cn}")
+            # Ps = ⌈(VCE − V_K)/1 µV⌉·(frac·1e4 + 1) is (VCE − V_K)·frac in units of 0.1 nV.
+            self.row(m.add(Ps.expr * S >= 10 * int(math.floor(need_u)) * self.u.expr), "headroom")
 
     def _current(self) -> None:
         """Supply current ≥ α·IE + VCC/(R1 + R2) at HI (the divider carries at least that)."""
@@ -393,25 +562,56 @@ class StageModel:
     def _low_cutoff(self) -> None:
         """Each capacitor's own corner is a lower bound of the whole response's corner."""
         m, b, lo = self.m, self.b, self.q["LO"]
-        r1, r2 = self.rv("bias_top", -1), self.rv("bias_bottom", -1)
+        r1, r2 = self.rv("bias_top", +1), self.rv("bias_bottom", +1)
         for k, inp in enumerate(self.spec.inputs, start=1):
             rs = _r(max(inp.source_resistance, 1.0))
-            ser = self.rv("input_series", -1, k)
+            ser = self.rv("input_series", +1, k)
             bounds = [ser + r1 + rs, ser + r2 + rs]  # Zin ≤ Rseries + RTH ≤ Rseries + min(R1, R2)
             if self.has("level_pot", k):
                 bounds.append(self.per("level_pot", lambda it: _r(it.value * (1 + it.tolerance) + 2 * POT_END_RESISTANCE), k) + rs)
             self._cap_rows("input_cap", k, bounds)
-        self._cap_rows("output_cap", None, [self.rv("collector", -1) + _r(self.spec.load.resistance)])
+        self._cap_rows("output_cap", None, [self.rv("collector", +1) + _r(self.spec.load.resistance)])
         if self.has("bypass_cap"):
-            # The bypass section alone falls 3 dB above 1/(2π·RE2·CE) once RE2 is at least the
-            # resistance in series with it, re + RE1 + Rs'/(β+1) (bounded above by 1.2·re + ...).
-            bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
-            re2lo = self.rv("emitter_bypassed", +1)
-            a_up = b.var(0, 10 * (lo["re"].hi + 2) + lo["RE1"].hi * 10 + r2.hi + 10, "a_up")
-            m.add(10 * bmin * a_up.expr >= 12 * bmin * (lo["re"].expr + 1) + 10 * bmin * lo["RE1"].expr + 10 * r2.expr)
-            deep = m.new_bool_var("bypass_deep")
-            m.add(re2lo.expr - a_up.expr <= -1).only_enforce_if(~deep)
-            self._cap_rows("bypass_cap", None, [self.rv("emitter_bypassed", -1)], [deep])
+            self._bypass_cutoff()
+
+    def _bypass_cutoff(self) -> None:
+        """The bypass section's own −3 dB point, a lower bound of the whole response's.
+
+        With a = re + RE1 + Rs'/(β+1) in series and b = RE2 bypassed by C, the section's gain
+        ratio is a/|a + b/(1 + jωbC)| ≥ 1/√2 only if b ≤ (√2 − 1)·a·(1 + (ωbC)²). At the
+        target frequency this must hold (at margin 0; the margin itself is not applied here).
+        """
+        m, b, lo = self.m, self.b, self.q["LO"]
+        fmax = self.spec.targets.low_cutoff_max
+        w = 2 * math.pi * fmax
+        bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
+        # Rs' ≤ 1/(G_RTH + Σ G_k): the resistance driving the base, excluding the transistor.
+        gsrc = lo["Grth"]
+        for g in lo["G"]:
+            gsrc = gsrc + g
+        rsrc = b.div(b.const(K), b.fix(gsrc + 1, "Gsrc"), "Rs'")
+        rsb = b.var(0, rsrc.hi // bmin + 2, "Rs'/beta")
+        for lit, dc in zip(self.tr, lo["devs"]):
+            bt = int(math.floor(dc.beta_lo)) + 1
+            m.add(bt * rsb.expr <= rsrc.expr + 2 * bt).only_enforce_if(lit)
+        a_up = b.fix(lo["re"] + lo["RE1"] + rsb + 2, "a_up")
+        # Dividing by b: the section stays within 3 dB iff a ≥ 1/((√2 − 1)(1/b + (ωC)²·b)),
+        # a constant for each (RE2, C_E) pair; one row per capacitor, linear in RE2's choice.
+        re2_items = self.slot[("emitter_bypassed", None)].items
+        re2_x = self.x[("emitter_bypassed", None)]
+        for it, bvar in zip(self.slot[("bypass_cap", None)].items, self.x[("bypass_cap", None)]):
+            if it.absent:
+                continue
+            cval = it.value * (1 + it.tolerance)  # the largest capacitance: the easiest case
+            need = []
+            for r_it in re2_items:
+                if r_it.absent:
+                    need.append(0)
+                    continue
+                bo = r_it.value * (1 + r_it.tolerance)
+                f = (math.sqrt(2) - 1) * (1 / bo + (w * cval) ** 2 * bo)
+                need.append(int(math.floor(R_U / f)))
+            self.row(m.add(a_up.expr >= sum(n_ * x_ for n_, x_ in zip(need, re2_x) if n_)), "low cutoff", [bvar])
 
     def _zout(self) -> None:
         """Zout ≥ RC∥ro ≥ RC·VAF/(VAF + VCC) (ro ≥ VAF/IC and IC·RC ≤ VCC)."""
@@ -427,3 +627,32 @@ class StageModel:
         pick = {key: next(i for i, bvar in enumerate(xs) if value(bvar)) for key, xs in self.x.items()}
         tr = next(i for i, bvar in enumerate(self.tr) if value(bvar))
         return pick, tr
+
+
+def model_margins(spec: Spec, cands: Candidates, pick: dict, transistor: int, time_limit: float = 10.0) -> dict:
+    """The model's own margin for each target, with every decision fixed to a choice.
+
+    Used to check that the model never says less than the analysis (it is a relaxation).
+    Returns target name → margin (nepers); −inf where the model has no solution.
+    """
+    out = {}
+    names = StageModel(spec, cands).on.keys()
+    for name in names:
+        sm = StageModel(spec, cands)
+        for key, xs in sm.x.items():
+            sm.m.add(xs[pick[key]] == 1)
+        sm.m.add(sm.tr[transistor] == 1)
+        for other, lit in sm.on.items():
+            sm.m.add(lit == (1 if other == name else 0))
+        sm.m.maximize(sm.u.expr)
+        solver = cp_model.CpSolver()
+        solver.parameters.num_workers = 1
+        solver.parameters.max_time_in_seconds = time_limit
+        st = solver.solve(sm.m)
+        if st == cp_model.OPTIMAL:
+            out[name] = math.log(solver.value(sm.u.expr) / S)
+        elif st == cp_model.FEASIBLE:
+            out[name] = math.log(solver.best_objective_bound / S)
+        else:
+            out[name] = -math.inf
+    return out
