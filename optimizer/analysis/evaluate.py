@@ -239,7 +239,9 @@ def analyse_many(designs: list, circuits: list[Circuit] | None = None, large_sig
             base = start + 1 + gi * stride
             for name in names:
                 v0 = vals[name][base]
-                deltas = np.array([vals[name][base + 1 + j] - v0 for j in range(len(parts))])
+                with np.errstate(invalid="ignore"):
+                    deltas = np.array([vals[name][base + 1 + j] - v0 for j in range(len(parts))])
+                deltas = np.nan_to_num(deltas, nan=0.0, posinf=0.0, neginf=0.0)
                 for d in _direction(name):
                     sgn = np.sign(deltas) * (1 if d == "max" else -1)
                     dev = {r: float(s_) * conds[i].tolerance[r] for r, s_ in zip(parts, sgn) if s_ != 0}
@@ -307,7 +309,8 @@ def _large(ans: list[Analysis], net: Network, circuits, conds, nom, glob, level,
             continue
         for gi, g in enumerate(glob[i]):
             base = start + 1 + gi * stride
-            dlt = sw[base + 1 : base + stride] - sw[base]
+            with np.errstate(invalid="ignore"):
+                dlt = np.nan_to_num(sw[base + 1 : base + stride] - sw[base], nan=0.0, posinf=0.0, neginf=0.0)
             dev = {r: -float(np.sign(x)) * conds[i].tolerance[r] for r, x in zip(core[i], dlt) if np.sign(x) != 0}
             vpts.append((i, g, dev))
     swv = swings(vpts) if vpts else np.zeros(0)

@@ -353,7 +353,10 @@ def clip_limits(net: Network, op: OperatingPoint, drive_input: int = 1, gain=Non
     """Clip limits from the quasi-static transfer curve (capacitors frozen at their DC voltage)."""
     batch = op.batch
     B = batch.size
-    frozen = np.stack([op.cap_voltage[ref] for ref, _, _ in net.cbranch]) if net.cbranch else None
+    # Coupling and bypass capacitors hold their charge over a cycle; the load's own
+    # capacitance does not (it is small and follows the signal), so it stays open.
+    frozen = np.stack([op.cap_voltage[ref] if net.elements[ref].part else np.full(B, np.nan)
+                       for ref, _, _ in net.cbranch]) if net.cbranch else None
     if gain is None:
         gain = np.ones(B)
     gain = np.maximum(np.abs(np.asarray(gain, float)), 1e-3)

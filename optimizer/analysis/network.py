@@ -314,11 +314,14 @@ class Network:
         G = _stamp(self.conductances(batch), self.rpairs, self.N)
         inj = np.zeros((self.N, B))
         if frozen is not None and self.cbranch:
-            G += _stamp(np.full((len(self.cbranch), B), FROZEN_G), self.cpairs, self.N)
+            # Capacitors with a voltage given act as batteries; NaN leaves one open.
+            held = np.isfinite(frozen)
+            G += _stamp(np.where(held, FROZEN_G, 0.0), self.cpairs, self.N)
+            volts = np.where(held, frozen, 0.0)
             for k, (_, a, b) in enumerate(self.cbranch):
                 # A battery V from a to b, as a Norton source: G·V pushed into a, out of b.
-                inj[a] += FROZEN_G * frozen[k]
-                inj[b] -= FROZEN_G * frozen[k]
+                inj[a] += FROZEN_G * volts[k]
+                inj[b] -= FROZEN_G * volts[k]
         red = self._reduce(G, vx, inj)
         params = self.device_params(batch)
         js = self._newton(red, vx, params, start, max_iter)

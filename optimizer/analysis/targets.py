@@ -47,12 +47,27 @@ def _ln(a: float, b: float) -> float:
     return math.log(a / b)
 
 
+#: The transistor must stay in its active region at every corner: VCE at least this (V).
+ACTIVE_VCE = 0.5
+#: ... and conduct at least this (A).
+ACTIVE_IC = 1e-6
+
+
 def judge(an, spec) -> list[TargetResult]:
-    """Every target of the spec against an :class:`~optimizer.analysis.evaluate.Analysis`."""
+    """Every target of the spec against an :class:`~optimizer.analysis.evaluate.Analysis`.
+
+    Besides the spec's own targets there is always one implicit target, ``active region``:
+    at every corner VCE ≥ 0.5 V and I_C ≥ 1 µA (a stage that saturates or turns off at a
+    corner is not an amplifier there).
+    """
     t = spec.targets
     n = an.circuit.n_inputs
     out: list[TargetResult] = []
     c = an.corner_of
+    vce_lo, ic_lo = an.low["vce"], an.low["ic"]
+    m_act = min(_ln(vce_lo, ACTIVE_VCE) if vce_lo > 0 else -math.inf, _ln(ic_lo, ACTIVE_IC) if ic_lo > 0 else -math.inf)
+    out.append(TargetResult("active region", f"VCE ≥ {ACTIVE_VCE:g} V, IC ≥ 1 µA", an.nominal["vce"], vce_lo, "V", m_act,
+                            c.get("vce:min", "")))
 
     def worst_over(base: str, d: str):
         keys = [f"{base}:{k}" for k in range(1, n + 1)]

@@ -27,7 +27,7 @@ I_MAX = 50e-3
 #: the second-harmonic estimate of an emitter-degenerated stage (domain reference §3.7),
 #: times κ so that it is never below the harmonic-balance swing (checked in
 #: tests/test_search_model.py on random designs).
-THD_SWING_FACTOR = 1.6
+THD_SWING_FACTOR = 1.2
 
 #: Collector–emitter voltage below which the stage is taken as saturated in the model's
 #: swing bound (V). The analysis finds 1 % THD well before VCE gets this low; the tests

@@ -51,14 +51,18 @@ RHO = 0.1
 RHO_NUM, RHO_DEN = 1, 100
 
 #: The targets the model constrains (names as in optimizer.analysis.targets).
-TARGET_NAMES = ("gain", "headroom", "input impedance", "output impedance", "low cutoff", "supply current")
+TARGET_NAMES = ("gain", "headroom", "input impedance", "output impedance", "low cutoff", "supply current", "active region")
 
 # Tolerance ends at each corner (+1: value·(1 + tol), −1: value·(1 − tol)). LO lowers the
-# current and the gain; HI raises the gain (a larger RTH loads the base less) and the current.
+# current and the gain; HI raises the current (the worst case for saturation and the current
+# budget) and the gain.
 DIRS = {
     "LO": {"bias_top": +1, "bias_bottom": -1, "collector": -1, "emitter": +1, "emitter_bypassed": +1,
            "input_series": +1, "level_pot": +1},
     "HI": {"bias_top": +1, "bias_bottom": +1, "collector": +1, "emitter": -1, "emitter_bypassed": -1,
+           "input_series": -1, "level_pot": -1},
+    # The most current: the worst case for saturation and the current budget (bias only).
+    "HS": {"bias_top": -1, "bias_bottom": +1, "collector": +1, "emitter": -1, "emitter_bypassed": -1,
            "input_series": -1, "level_pot": -1},
 }
 
@@ -122,13 +126,17 @@ class StageModel:
     explaining infeasibility).
     """
 
-    def __init__(self, spec: Spec, cands: Candidates):
+    def __init__(self, spec: Spec, cands: Candidates, separate: str | None = None, offset: dict | None = None):
         self.spec, self.cands = spec, cands
         self.m = cp_model.CpModel()
         self.b = Builder(self.m)
         self.x: dict[tuple, list] = {}
         self.slot: dict[tuple, RoleSlot] = {}
         self.on: dict[str, cp_model.IntVar] = {}
+        self.separate = separate
+        # Offsets make a target's limits stricter by e^δ (only to steer proposals: a model
+        # with offsets is no longer a relaxation, so it never proves anything).
+        self.offset = dict(offset or {})
         self._build()
 
     # -- helpers --------------------------------------------------------------------------
@@ -151,8 +159,31 @@ class StageModel:
             self.on[name] = self.m.new_bool_var(f"target[{name}]")
         return self.on[name]
 
+    def _margin_pair(self, name: str):
+        b = self.b
+        u = b.var(int(S * math.exp(T_MIN)), int(S * math.exp(T_MAX)), name)
+        v = b.var(int(S * math.exp(-T_MAX)), int(S * math.exp(-T_MIN)) + 1, name.replace("u", "v"))
+        uv = b.prod(u, v, name + "·v")
+        self.m.add(uv.expr <= S * S + 2 * S)
+        return u, v
+
     def row(self, ct, target: str, also=()) -> None:
         ct.only_enforce_if([self.target(target), *also])
+
+    def up(self, target: str, coef) -> cp_model.LinearExpr:
+        """coef·u for a lower limit: the limit with the common margin (and the target's offset)."""
+        return int(math.floor(coef * math.exp(self.offset.get(target, 0.0)))) * self.U(target).expr
+
+    def down(self, target: str, coef) -> cp_model.LinearExpr:
+        """coef·v for an upper limit."""
+        return int(math.ceil(coef * math.exp(-self.offset.get(target, 0.0)))) * self.V(target).expr
+
+    def U(self, target: str):
+        """The margin variable u of a target (its own when it is being explained)."""
+        return self.u_sep if self.separate == target else self.u
+
+    def V(self, target: str):
+        return self.v_sep if self.separate == target else self.v
 
     # -- the model ------------------------------------------------------------------------
     def _build(self) -> None:
@@ -167,19 +198,34 @@ class StageModel:
         m.add_exactly_one(self.tr)
         if self.has("emitter_bypassed") and self.has("bypass_cap"):
             m.add(self.x[("emitter_bypassed", None)][0] == self.x[("bypass_cap", None)][0])  # both absent or both present
-        umax, vmax = int(S * math.exp(T_MAX)), int(S * math.exp(-T_MIN)) + 1
-        self.u = b.var(int(S * math.exp(T_MIN)), umax, "u")
-        self.v = b.var(int(S * math.exp(-T_MAX)), vmax, "v")
-        uv = b.prod(self.u, self.v, "uv")
-        m.add(uv.expr <= S * S + 2 * S)
+        self.u, self.v = self._margin_pair("u")
+        # A window's margin never exceeds half its width (valid for every design).
+        self.t_cap = T_MAX
+        if spec.targets.gain is not None:
+            self.t_cap = min(T_MAX, (spec.targets.gain.max - spec.targets.gain.min) / 2 / (20 / math.log(10)))
+            m.add(self.u.expr <= int(math.ceil(S * math.exp(self.t_cap))) + 1)
+        if self.separate:
+            # The target being explained gets its own margin; the rest keep u, v.
+            self.u_sep, self.v_sep = self._margin_pair("u_sep")
         self._stock()
         self._sizing_rule()
         t = spec.targets
         self.corners = {
             "LO": Corner("LO", spec.supply.min, spec.ambient.min, "min", +1),
             "HI": Corner("HI", spec.supply.max, spec.ambient.max, "max", -1),
+            "HS": Corner("HS", spec.supply.min, spec.ambient.max, "max", -1),
         }
         self.q = {name: self._corner(c) for name, c in self.corners.items()}
+        # Orderings the true values always satisfy (redundant, they help the solver): LO has the
+        # least current, HS the most at the low supply; HS has the least VCE.
+        m.add(self.q["LO"]["IE"].expr <= self.q["HI"]["IE"].expr)
+        m.add(self.q["LO"]["IE"].expr <= self.q["HS"]["IE"].expr)
+        m.add(self.q["HS"]["vce"].expr <= self.q["LO"]["vce"].expr + 1)
+        if t.supply_current_max is not None:
+            # The emitter current never exceeds the supply current (valid at any margin ≥ 0).
+            imax_u = int(math.ceil(t.supply_current_max * I_U / min(d.alpha_lo for d in self.q["HI"]["devs"])))
+            for q in self.q.values():
+                m.add(q["IE"].expr <= imax_u)
         if t.gain is not None:
             self._gain()
         if t.input_impedance_min is not None:
@@ -193,6 +239,15 @@ class StageModel:
             self._low_cutoff()
         if t.output_impedance_max is not None:
             self._zout()
+        self._active()
+
+    def _active(self) -> None:
+        """The implicit target: VCE ≥ 0.5 V and I_C ≥ 1 µA at both corners (margin ln(x/limit))."""
+        from ..analysis.targets import ACTIVE_IC, ACTIVE_VCE
+
+        for q in self.q.values():
+            self.row(self.m.add(q["vce"].expr * S >= self.up("active region", int(ACTIVE_VCE * V_U))), "active region")
+            self.row(self.m.add(q["IE"].expr * S >= self.up("active region", int(ACTIVE_IC * I_U))), "active region")
 
     def _sizing_rule(self) -> None:
         """Coupling capacitors: X(1 kHz) ≤ ρ·R at the tolerance ends (see RHO)."""
@@ -284,6 +339,19 @@ class StageModel:
             m.add((bb + 1) * P1.expr + P2.expr <= (bb + 1) * (VTH.expr - va + 2)).only_enforce_if(lit)
             m.add((ba + 1) * P1.expr + P2.expr >= (ba + 1) * (VTH.expr - vb - 2)).only_enforce_if(lit)
         q.update(R1=R1, R2=R2, S12=S12, VTH=VTH, RTH=RTH, RE1=RE1, RE2=RE2, IE=IE, P1=P1, vcc=vcc, devs=devs)
+        # VCE ≤ VCC − α·IE·RC − IE·RE (the collector carries at least α·IE).
+        rc = b.fix(self.rv("collector", dirs["collector"]), f"RC{c.name}")
+        Pc = b.prod(IE, rc, f"IE.RC{c.name}")
+        amin = int(math.floor(1000 * min(d.alpha_lo for d in devs)))
+        Pca = b.var(0, Pc.hi * amin // 1000 + 1, f"IC.RC{c.name}")
+        m.add(1000 * Pca.expr <= amin * Pc.expr)
+        m.add(1000 * Pca.expr >= amin * Pc.expr - 1000)
+        vce = b.var(0, vcc, f"VCE{c.name}")
+        m.add(vce.expr <= vcc - Pca.expr - P1.expr + 1)
+        q["vce"] = vce
+        if c.name == "HS":
+            q["RE1"] = RE1
+            return q
         vt = (min if lo_corner else max)(d.vt for d in devs)
         vt_u = int(round(vt * V_U))
         q["vt_u"] = vt_u
@@ -355,6 +423,18 @@ class StageModel:
             Gsum = Gsum + g
         Gb = b.fix(Gsum if lo_corner else Gsum + (n + 2), f"Gb{c.name}")
         q["Gb"], q["Grth"], q["Gzb"] = Gb, Grth, Gzb
+        # Rs'/(β+1): the source resistance at the base seen from the emitter. Rs' ≤
+        # 1/(G_RTH + Σ G_k); β at the corner's low end for the chosen type.
+        gsrc = Grth
+        for g in G:
+            gsrc = gsrc + g
+        rsrc = b.div(b.const(K), b.fix(gsrc + 1, f"Gsrc{c.name}"), f"Rs'{c.name}")
+        bmin_all = int(math.floor(min(dc.beta_lo for dc in devs))) + 1
+        rsb = b.var(0, rsrc.hi // bmin_all + 2, f"Rs'/beta{c.name}")
+        for lit, dc in zip(self.tr, devs):
+            bt = int(math.floor(dc.beta_lo)) + 1
+            m.add(bt * rsb.expr <= rsrc.expr + 2 * bt).only_enforce_if(lit)
+        q["rsb"] = rsb
         # Load conductance g_L = 1/RC + 1/RL, plus 1/ro and the output capacitor at HI.
         g_rl = int(round(K / _r(spec.load.resistance)))
         dcoll = dirs["collector"]
@@ -363,9 +443,16 @@ class StageModel:
             gL = b.fix(grc + g_rl, f"gL{c.name}")
         else:
             vaf = min(dc.va for dc in devs)
-            # 1/ro ≤ IC/VAF ≤ IE/VAF; 1 S is 1e9 conductance units, 1 A is 1e8 current units.
+            # The transistor's output conductance: 1/ro ≤ IC/VAF ≤ IE/VAF, and with the
+            # emitter degenerated r_out ≥ ro·gm·min(x, rπ)/2, so g_out ≤ 2VT/(VAF·min(x, rπ))
+            # ≤ 2VT/(VAF·x) + 2VT/(VAF·rπ). Units: 1 S = 1e9, 1 A = 1e8, 1 Ω = 10.
             gro = b.var(0, 10 * IE.hi // int(vaf) + 2, "g_ro")
             m.add(int(vaf) * gro.expr <= 10 * IE.expr + int(vaf))
+            kx = int(math.ceil(2 * vt * 1e9 * R_U / vaf))
+            q1 = b.div(b.const(kx), b.fix(x_lo + 1, "x+1"), "2VT/VAF.x")
+            bmin_t = int(math.floor(min(dc.beta_lo for dc in devs))) + 1
+            q2 = b.div(b.const(kx), b.fix((re + 1).times(bmin_t), "rpi"), "2VT/VAF.rpi")
+            m.add(gro.expr <= q1.expr + q2.expr + 2)
             # The output capacitor (X ≤ ρ·RL by the sizing rule) lowers |v_out| by at most
             # a factor 1/√(1 + ρ²): g_L·(1 + ρ²/2).
             base = b.fix(grc + g_rl + gro + 1, "gL0")
@@ -463,30 +550,40 @@ class StageModel:
                 a_hi = dlo.beta_hi / (dlo.beta_hi + 1)
                 # A·α_F ≥ gmin·1e4·u/S at LO;  A·α_F ≤ gmax·1e4·v/S at HI.
                 self.row(self.m.add(int(math.ceil(a_hi * 1e6)) * (lo["A"][k].expr + 1) * S
-                                    >= int(math.floor(gmin * 1e10)) * self.u.expr), "gain", [lit])
+                                    >= self.up("gain", int(math.floor(gmin * 1e10)))), "gain", [lit])
                 self.row(self.m.add(int(math.floor(a_lo * 1e6)) * hi["A"][k].expr * S
-                                    <= int(math.ceil(gmax * 1e10)) * self.v.expr), "gain", [lit])
+                                    <= self.down("gain", int(math.ceil(gmax * 1e10)))), "gain", [lit])
+
+    def _zin_inner(self, k: int) -> Bounded:
+        """Upper bound of Rseries + 1/G_rest (+ the input capacitor's reactance) at LO: the
+        impedance input k sees past its level control (cached)."""
+        cache = self.q["LO"].setdefault("zin_inner", {})
+        if k in cache:
+            return cache[k]
+        b, lo = self.b, self.q["LO"]
+        rest = lo["Grth"] + lo["Gzb"] + 1
+        for j, gj in enumerate(lo["G"], start=1):
+            if j != k:
+                rest = rest + gj
+        zrest = b.div(b.const(K), b.fix(rest, f"Grest{k}"), f"Zrest{k}")
+        ser = self.rv("input_series", DIRS["LO"]["input_series"], k)
+        xcin = self.per("input_cap", lambda it: _r(_x(it.value * (1 - it.tolerance))), k)
+        cache[k] = b.fix(ser + zrest + xcin + 2, f"Zinner{k}")
+        return cache[k]
 
     def _zin(self) -> None:
         """Zin = Rpot ∥ (Rseries + 1/G_rest) (+ the input capacitor's reactance), at LO."""
         zmin = self.spec.targets.input_impedance_min
-        m, b, lo = self.m, self.b, self.q["LO"]
-        for k in range(1, len(lo["G"]) + 1):
-            rest = lo["Grth"] + lo["Gzb"] + 1
-            for j, gj in enumerate(lo["G"], start=1):
-                if j != k:
-                    rest = rest + gj
-            rest = b.fix(rest, f"Grest{k}")
-            zrest = b.div(b.const(K), rest, f"Zrest{k}")
-            ser = self.rv("input_series", +1, k)
-            xcin = self.per("input_cap", lambda it: _r(_x(it.value * (1 - it.tolerance))), k)
-            inner = ser + zrest + xcin + 2
+        m, b = self.m, self.b
+        for k in range(1, len(self.spec.inputs) + 1):
+            inner = self._zin_inner(k)
             if self.has("level_pot", k):
-                yin = b.div(b.const(K), b.fix(inner, f"Zinner{k}"), f"Yinner{k}")
+                yin = b.div(b.const(K), inner, f"Yinner{k}")
                 gpot = self.per("level_pot", lambda it: int(math.floor(K / _r(it.value * (1 + it.tolerance) + 2 * POT_END_RESISTANCE))), k)
-                self.row(m.add((gpot.expr + yin.expr) * S <= int(math.ceil(K / _r(zmin))) * self.v.expr), "input impedance")
+                self.row(m.add((gpot.expr + yin.expr) * S <= self.down("input impedance", int(math.ceil(K / _r(zmin))))),
+                         "input impedance")
             else:
-                self.row(m.add(inner.expr * S >= _r(zmin) * self.u.expr), "input impedance")
+                self.row(m.add(inner.expr * S >= self.up("input impedance", _r(zmin))), "input impedance")
 
     def _swing(self, need: float) -> None:
         """Swing at the THD limit: bounded above by cutoff, saturation and distortion."""
@@ -500,12 +597,9 @@ class StageModel:
         rL = b.fix(self.per("collector", lambda it: _r(it.value * (1 - it.tolerance) * rl / (it.value * (1 - it.tolerance) + rl)) + 1), "rL")
         Y1 = b.prod(IE, rL, "IE.rL")  # IC·rL bound, nV
         # Cutoff: the collector can rise at most IC·rL.
-        self.row(m.add(Y1.expr * S >= int(math.floor(need_u)) * self.u.expr), "headroom")
-        # Distortion: swing ≤ κ·4·THD·(1 + gm·(RE1 + Rs'/(β+1)))·IC·rL, with Rs' ≤ R2.
-        bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
-        r2 = self.rv("bias_bottom", +1)
-        rsb = b.var(0, r2.hi // bmin + 1, "Rs/beta")
-        m.add(bmin * rsb.expr <= r2.expr + bmin)
+        self.row(m.add(Y1.expr * S >= self.up("headroom", int(math.floor(need_u)))), "headroom")
+        # Distortion: swing ≤ κ·4·THD·(1 + gm·(RE1 + Rs'/(β+1)))·IC·rL.
+        rsb = lo["rsb"]
         Dg = b.fix(lo["RE1"] + rsb, "Rdeg")
         P3 = b.prod(IE, Dg, "IE.Rdeg")
         X1 = b.scale_down(P3 + lo["vt_u"], 10**5, up=True, base="X1")
@@ -513,21 +607,14 @@ class StageModel:
         XY = b.prod(X1, Y1s, "X1.Y1")
         kap = THD_SWING_FACTOR * 4 * thd
         coef = int(math.floor(need_u * lo["vt_u"] / (kap * 1e10 * S)))
-        self.row(m.add(XY.expr >= coef * self.u.expr), "headroom")
+        self.row(m.add(XY.expr >= self.up("headroom", coef)), "headroom")
         # Saturation: as the output falls by v, the collector falls by v and the emitter rises
         # by v·RE1/rL, so VCE reaches the knee V_K when v = (VCE − V_K)·rL/(rL + RE1), with
         # VCE = VCC − IC·RC − IE·RE; at both corners.
-        for qd in (lo, hi):
+        for qd in (lo, self.q["HS"]):
             cn = qd["corner"].name
             dcol = DIRS[cn]["collector"]
-            rc = b.fix(self.per("collector", lambda it, s=dcol: _r(it.value * (1 + s * it.tolerance))), f"RCsat{cn}")
-            Pc = b.prod(qd["IE"], rc, f"IE.RC{cn}")
-            amin = int(math.floor(1000 * min(d.alpha_lo for d in qd["devs"])))
-            Pca = b.var(0, Pc.hi * amin // 1000 + 1, f"IC.RC{cn}")
-            m.add(1000 * Pca.expr <= amin * Pc.expr)
-            m.add(1000 * Pca.expr >= amin * Pc.expr - 1000)
-            vce = b.var(0, qd["vcc"], f"VCE{cn}")
-            m.add(vce.expr <= qd["vcc"] - Pca.expr - qd["P1"].expr + 1)
+            vce = qd["vce"]
             vk = int(SAT_KNEE * V_U)
             vce_k = b.var(0, qd["vcc"], f"VCE-knee{cn}")
             m.add(vce_k.expr <= vce.expr - vk)
@@ -536,7 +623,7 @@ class StageModel:
             frac = b.div(rl_c.times(10**4), b.fix(rl_c + qd["RE1"], f"rL+RE1{cn}"), f"rL/(rL+RE1){cn}", hi=10**4)
             Ps = b.prod(b.scale_down(vce_k, 10**3, up=True, base=f"VCEk/1e3{cn}"), b.fix(frac + 1, f"frac+{cn}"), f"sat{cn}")
             # Ps = ⌈(VCE − V_K)/1 µV⌉·(frac·1e4 + 1) is (VCE − V_K)·frac in units of 0.1 nV.
-            self.row(m.add(Ps.expr * S >= 10 * int(math.floor(need_u)) * self.u.expr), "headroom")
+            self.row(m.add(Ps.expr * S >= self.up("headroom", 10 * int(math.floor(need_u)))), "headroom")
 
     def _current(self) -> None:
         """Supply current ≥ α·IE + VCC/(R1 + R2) at HI (the divider carries at least that)."""
@@ -545,7 +632,7 @@ class StageModel:
         idiv = self.b.div(self.b.const(hi["vcc"]), hi["S12"], "Idiv")
         amin = int(math.floor(1000 * min(d.alpha_lo for d in hi["devs"])))
         self.row(self.m.add((amin * hi["IE"].expr + 1000 * idiv.expr) * S
-                            <= int(math.ceil(imax * I_U * 1000)) * self.v.expr), "supply current")
+                            <= self.down("supply current", int(math.ceil(imax * I_U * 1000)))), "supply current")
 
     def _cap_rows(self, role, inp, rbounds, also=()) -> None:
         """C·R ≥ 1/(2π·fmax)·e^t for each capacitor choice and each resistance bound R."""
@@ -557,7 +644,7 @@ class StageModel:
                 continue
             coef = int(math.floor(D * kf / (S * it.value * (1 - it.tolerance) * C_U)))
             for rb in rbounds:
-                self.row(self.m.add(D * rb.expr >= coef * self.u.expr), "low cutoff", [bvar, *also])
+                self.row(self.m.add(D * rb.expr >= self.up("low cutoff", coef)), "low cutoff", [bvar, *also])
 
     def _low_cutoff(self) -> None:
         """Each capacitor's own corner is a lower bound of the whole response's corner."""
@@ -565,8 +652,8 @@ class StageModel:
         r1, r2 = self.rv("bias_top", +1), self.rv("bias_bottom", +1)
         for k, inp in enumerate(self.spec.inputs, start=1):
             rs = _r(max(inp.source_resistance, 1.0))
-            ser = self.rv("input_series", +1, k)
-            bounds = [ser + r1 + rs, ser + r2 + rs]  # Zin ≤ Rseries + RTH ≤ Rseries + min(R1, R2)
+            # Zin ≤ Rseries + 1/G_rest at LO (and ≤ the pot's track with a level control).
+            bounds = [self._zin_inner(k) + rs]
             if self.has("level_pot", k):
                 bounds.append(self.per("level_pot", lambda it: _r(it.value * (1 + it.tolerance) + 2 * POT_END_RESISTANCE), k) + rs)
             self._cap_rows("input_cap", k, bounds)
@@ -584,16 +671,7 @@ class StageModel:
         m, b, lo = self.m, self.b, self.q["LO"]
         fmax = self.spec.targets.low_cutoff_max
         w = 2 * math.pi * fmax
-        bmin = int(math.floor(min(d.beta_lo for d in lo["devs"]))) + 1
-        # Rs' ≤ 1/(G_RTH + Σ G_k): the resistance driving the base, excluding the transistor.
-        gsrc = lo["Grth"]
-        for g in lo["G"]:
-            gsrc = gsrc + g
-        rsrc = b.div(b.const(K), b.fix(gsrc + 1, "Gsrc"), "Rs'")
-        rsb = b.var(0, rsrc.hi // bmin + 2, "Rs'/beta")
-        for lit, dc in zip(self.tr, lo["devs"]):
-            bt = int(math.floor(dc.beta_lo)) + 1
-            m.add(bt * rsb.expr <= rsrc.expr + 2 * bt).only_enforce_if(lit)
+        rsb = lo["rsb"]
         a_up = b.fix(lo["re"] + lo["RE1"] + rsb + 2, "a_up")
         # Dividing by b: the section stays within 3 dB iff a ≥ 1/((√2 − 1)(1/b + (ωC)²·b)),
         # a constant for each (RE2, C_E) pair; one row per capacitor, linear in RE2's choice.
@@ -619,7 +697,57 @@ class StageModel:
         vaf = min(tt.model().va for _, tt in self.cands.transistors)
         f = vaf / (vaf + self.spec.supply.max)
         zo = self.per("collector", lambda it: _r(it.value * (1 - it.tolerance) * f))
-        self.row(self.m.add(zo.expr * S <= _r(zmax) * self.v.expr), "output impedance")
+        self.row(self.m.add(zo.expr * S <= self.down("output impedance", _r(zmax))), "output impedance")
+
+    # -- objectives and cuts ---------------------------------------------------------------
+    def simplicity(self):
+        """(parts, BOM lines, parts bought, tie-break) as linear expressions.
+
+        Parts: every part fitted. Lines: distinct (kind, value) pairs. Bought: parts not taken
+        from the stock list. Tie-break: the sum of item indices (smaller values first), so the
+        best design is unique and every run finds the same one.
+        """
+        m = self.m
+        parts = 1  # the transistor
+        bought = 0
+        tie = 0
+        by_value: dict[tuple, list] = {}
+        for key, xs in self.x.items():
+            items = self.slot[key].items
+            kind = self.slot[key].role.kind
+            for i, (it, bvar) in enumerate(zip(items, xs)):
+                if it.absent:
+                    continue
+                parts = parts + bvar
+                if it.source != "stock":
+                    bought = bought + bvar
+                tie = tie + i * bvar
+                by_value.setdefault((kind, round(it.value, 15)), []).append(bvar)
+        lines = 0
+        for vals in by_value.values():
+            used = m.new_bool_var("")
+            for bvar in vals:
+                m.add_implication(bvar, used)
+            lines = lines + used
+        return parts, lines, bought, tie
+
+    def hint(self, choice) -> None:
+        """Suggest a design to start from (the best of the previous round)."""
+        for key, i in choice.pick:
+            for j, bvar in enumerate(self.x[key]):
+                self.m.add_hint(bvar, j == i)
+        for j, bvar in enumerate(self.tr):
+            self.m.add_hint(bvar, j == choice.transistor)
+
+    def forbid_core(self, pick: dict, transistor: int) -> None:
+        """Cut every design with this transistor and these resistors and pots (any capacitors)."""
+        lits = [self.x[key][i] for key, i in pick.items() if self.slot[key].role.kind != "C"] + [self.tr[transistor]]
+        self.m.add_bool_or([~lit for lit in lits])
+
+    def forbid(self, pick: dict, transistor: int) -> None:
+        """Cut one design from the model (a no-good on its choices)."""
+        lits = [self.x[key][i] for key, i in pick.items()] + [self.tr[transistor]]
+        self.m.add_bool_or([~lit for lit in lits])
 
     # -- decoding -------------------------------------------------------------------------
     def chosen(self, value) -> tuple[dict, int]:

@@ -1,0 +1,147 @@
+"""Why no design can meet a spec: the conflicting targets, and what each could reach.
+
+Each target's rows in the model carry a literal; solving with those literals as assumptions
+gives a set of targets that cannot all hold, which a deletion loop shrinks to a minimal one
+(dropping any single target from it makes the rest feasible). For each target of that set
+the model is then solved with the other targets met and this one's margin free, which gives
+the nearest value it could reach. The model is a relaxation, so every such value is a bound
+no design can beat ("the gain can be at most …").
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+from ortools.sat.python import cp_model
+
+from ..analysis.targets import DB_PER_NEPER
+from ..spec.quantities import format_si
+from ..spec.specfile import Spec
+from .candidates import Candidates
+from .model import S, StageModel
+
+__all__ = ["Conflict", "explain"]
+
+
+@dataclass
+class Conflict:
+    """One target of a minimal conflicting set, and the nearest value it could reach."""
+
+    target: str
+    asked: str
+    reachable: str
+    margin: float  # the best margin the target could have with the others met (≤ 0)
+    text: str
+
+    def to_json(self) -> dict:
+        return {"target": self.target, "asked": self.asked, "reachable": self.reachable,
+                "margin": None if math.isinf(self.margin) else self.margin, "text": self.text}
+
+
+def _solver(seed, seconds, one_worker=True):
+    s = cp_model.CpSolver()
+    s.parameters.num_workers = 1
+    s.parameters.random_seed = seed
+    s.parameters.max_deterministic_time = max(seconds, 0.1)
+    s.parameters.max_time_in_seconds = max(seconds * 2, 0.2)
+    s.parameters.linearization_level = 0
+    return s
+
+
+def _feasible(spec, cands, on: set[str], seed, seconds) -> int:
+    sm = StageModel(spec, cands)
+    for name, lit in sm.on.items():
+        sm.m.add(lit == (1 if name in on else 0))
+    sm.m.add(sm.u.expr >= S)
+    return _solver(seed, seconds).solve(sm.m)
+
+
+def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[Conflict]:
+    """A minimal set of conflicting targets, with the nearest value of each."""
+    sm = StageModel(spec, cands)
+    names = list(sm.on)
+    sm.m.add(sm.u.expr >= S)
+    sm.m.add_assumptions(list(sm.on.values()))
+    solver = _solver(seed, 10.0)
+    st = solver.solve(sm.m)
+    if st != cp_model.INFEASIBLE:
+        core = set(names)
+    else:
+        idx = {lit.index: name for name, lit in sm.on.items()}
+        core = {idx[i] for i in solver.sufficient_assumptions_for_infeasibility() if i in idx} or set(names)
+    # Deletion loop: drop a target; if the rest is still infeasible, it was not needed.
+    for name in sorted(core):
+        if time.monotonic() > deadline + 30:
+            break
+        trial = core - {name}
+        if trial and _feasible(spec, cands, trial, seed, 5.0) == cp_model.INFEASIBLE:
+            core = trial
+    out = []
+    for name in sorted(core):
+        t = _nearest(spec, cands, name, core, seed)
+        out.append(_describe(spec, name, t))
+    return out
+
+
+def _nearest(spec, cands, name, core, seed) -> float:
+    """The best margin of one target with the other targets of the spec at margin ≥ 0."""
+    sm = StageModel(spec, cands, separate=name)
+    for other, lit in sm.on.items():
+        sm.m.add(lit == 1)
+    sm.m.add(sm.u.expr >= S)
+    sm.m.maximize(sm.u_sep.expr)
+    solver = _solver(seed, 10.0)
+    st = solver.solve(sm.m)
+    if st in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        bound = solver.best_objective_bound if st == cp_model.FEASIBLE else solver.value(sm.u_sep.expr)
+        return math.log(max(bound, 1) / S)
+    return -math.inf
+
+
+def _describe(spec: Spec, name: str, t: float) -> Conflict:
+    tg = spec.targets
+    f = math.exp(t) if math.isfinite(t) else 0.0
+    never = not math.isfinite(t)
+    if name == "gain" and tg.gain:
+        widen = -t * DB_PER_NEPER if math.isfinite(t) else math.inf
+        asked = f"{tg.gain.min:+.1f} .. {tg.gain.max:+.1f} dB"
+        reach = "none" if never else f"{tg.gain.min - widen:+.1f} .. {tg.gain.max + widen:+.1f} dB"
+        text = (f"the gain window would have to widen by {widen:.1f} dB on each side ({reach}); asked {asked}"
+                if not never else f"no gain in {asked} goes with the other targets")
+    elif name == "headroom":
+        need = tg.required_swing()
+        if tg.headroom_min is not None:
+            reach_db = tg.headroom_min + t * DB_PER_NEPER if not never else -math.inf
+            asked = f"{tg.headroom_min:g} dB"
+            reach = f"{reach_db:.1f} dB"
+            text = f"the headroom can be at most {reach}; asked {asked}"
+        else:
+            asked = f"{need:.3g} V peak"
+            reach = f"{need * f:.3g} V peak"
+            text = f"the swing can be at most {reach}; asked {asked}"
+    elif name == "input impedance":
+        asked = format_si(tg.input_impedance_min, "Ω")
+        reach = format_si(tg.input_impedance_min * f, "Ω")
+        text = f"the input impedance can be at most {reach}; asked at least {asked}"
+    elif name == "output impedance":
+        asked = format_si(tg.output_impedance_max, "Ω")
+        reach = format_si(tg.output_impedance_max / f, "Ω") if f else "none"
+        text = f"the output impedance is at least {reach}; asked at most {asked}"
+    elif name == "low cutoff":
+        asked = format_si(tg.low_cutoff_max, "Hz")
+        reach = format_si(tg.low_cutoff_max / f, "Hz") if f else "none"
+        text = f"the low cutoff can go down to {reach} at best; asked {asked}"
+    elif name == "supply current":
+        asked = format_si(tg.supply_current_max, "A")
+        reach = format_si(tg.supply_current_max / f, "A") if f else "none"
+        text = f"the stage needs at least {reach}; allowed {asked}"
+    else:
+        asked, reach = "active at every corner", "not possible"
+        text = "no design keeps the transistor active at every corner with the other targets met"
+    if never and name != "gain":
+        text = f"{name}: cannot be met at all with the other targets"
+    sup = spec.supply
+    text = f"at {sup.min:g}–{sup.max:g} V, {text}"
+    return Conflict(name, asked, reach, t, text)
