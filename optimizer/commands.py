@@ -172,3 +172,79 @@ def cmd_check(args) -> int:
             print("  (with this transistor the design would need new values: run stagefit design with it)")
         return EXIT_UNMET
     return EXIT_OK
+
+
+def _progress(args):
+    """Progress lines on a terminal (stderr); silent when piped, with --quiet or --json."""
+    if args.quiet or args.json or not sys.stderr.isatty():
+        return None
+    import time as _time
+
+    t0 = _time.monotonic()
+
+    def say(msg: str) -> None:
+        print(f"  [{_time.monotonic() - t0:5.1f} s] {msg}", file=sys.stderr, flush=True)
+
+    return say
+
+
+def _spec_with_overrides(args):
+    from dataclasses import replace
+    from pathlib import Path
+
+    from .spec.specfile import load_spec
+    from .spec.stockfile import load_stock
+
+    spec = load_spec(args.spec)
+    stock = None
+    if getattr(args, "stock", None):
+        stock = load_stock(args.stock)
+        parts = replace(spec.parts, stock=Path(args.stock), use=spec.parts.use if spec.parts.use != "series-only" else "stock-first")
+        spec = replace(spec, parts=parts)
+    se = spec.search
+    se = replace(se, top=args.top or se.top) if getattr(args, "top", None) else se
+    if getattr(args, "time_limit", None):
+        se = replace(se, time_limit=args.time_limit)
+    if getattr(args, "seed", None) is not None:
+        se = replace(se, seed=args.seed)
+    return replace(spec, search=se), stock
+
+
+def cmd_design(args) -> int:
+    from pathlib import Path
+
+    from .cli import EXIT_UNMET
+    from .outputs.results import ranked_table, result_json
+    from .outputs.writer import write_outputs
+    from .search.solve import search
+
+    spec, stock = _spec_with_overrides(args)
+    out_dir = Path(args.out) if args.out else Path("outputs") / spec.name
+    writer = None
+    if not args.no_files:
+        from .outputs.files import OutputDir
+
+        writer = OutputDir(out_dir, args.force)
+        writer.check(["result.json", "design-1.yaml", "bom.csv", "report.html"])
+    for w in (stock.warnings if stock else ()):
+        _warn(args, f"note: {w}")
+    result = search(spec, stock=stock, progress=_progress(args))
+    from .analysis.evaluate import ratings
+
+    rated = {id(v): ratings(v.analysis) for v in result.designs}
+    data = result_json(result, lambda v: rated[id(v)])
+    if writer is not None:
+        write_outputs(writer, spec, result, data, rated, progress=_progress(args))
+    if args.json:
+        print_json(data)
+    else:
+        _say(args, f"{spec.name}: {result.status}" + (f" — {len(result.designs)} design(s)" if result.designs else ""))
+        if result.designs:
+            print(ranked_table(result, spec))
+        for c in result.conflicts:
+            print("  " + c.text)
+        for n in result.notes:
+            _say(args, "  " + n)
+        if writer is not None and writer.written:
+            _say(args, f"\nwrote {len(writer.written)} files to {out_dir}/ (report.html, bom.csv, design-N.yaml, design-N.cir ...)")
+    return EXIT_OK if result.designs else EXIT_UNMET

@@ -70,8 +70,8 @@ class SearchResult:
 
 def rank_key(v: Verified):
     """Ranking: margin (ties within TIE), then parts, BOM lines, parts to buy, cost, values."""
-    parts = sum(1 for _ in v.design.parts) + 1
-    lines = len({(p.role.split("_")[0] if False else ("C" if p.ref.startswith("C") else "R"), p.value) for p in v.design.parts})
+    parts = len(v.design.parts) + 1
+    lines = len({(p.ref.rstrip("0123456789"), round(p.value, 15)) for p in v.design.parts}) + 1
     bought = sum(1 for it in v.items.values() if it.source != "stock")
     cost = sum(it.price or 0.0 for it in v.items.values() if it.source != "stock")
     values = tuple(round(p.value, 15) for p in v.design.parts)
@@ -211,10 +211,18 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     hint = None
     seen: set = set()
     core_cuts: list[Choice] = []
+    best_proved = topk_proved = False
     chunk = max(2.0, (deadline - time.monotonic()) / 8)
-    while left() > 0.3:
+    polish_at = deadline - 0.2 * (deadline - time.monotonic())
+    while left() > 0.3 and (best is None or time.monotonic() < polish_at):
         rounds += 1
-        floor = 0.0 if best is None else best + TIE
+        # Phase 1: something better than the best so far. Phase 2 (once the best is proved):
+        # something that could still enter the top K, above the K-th best verified.
+        good = sorted(_passing(verified), key=rank_key)
+        if not best_proved:
+            floor = 0.0 if best is None else best + TIE
+        else:
+            floor = 0.0 if len(good) < top else good[top - 1].margin + TIE
         sm = _model(spec, cands, cuts, floor, offsets, core_cuts)
         if hint is not None:
             sm.hint(hint)
@@ -224,8 +232,14 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         relaxed = not any(v > 0.002 for v in offsets.values())
         if st == cp_model.INFEASIBLE:
             if relaxed or _proved_none_above(spec, cands, cuts, floor, seed, left, chunk, core_cuts):
-                bound = floor
-                status = "optimal" if best is not None else "infeasible"
+                if best is None:
+                    bound, status = floor, "infeasible"
+                    break
+                if not best_proved:
+                    best_proved, bound, status = True, floor, "optimal"
+                    if top > 1:
+                        continue
+                topk_proved = True
                 break
             offsets = {k: v / 2 for k, v in offsets.items()}
             continue
@@ -260,13 +274,24 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         best = good[0].margin if good else None
         say(f"round {rounds}: verified {stats['verified']} designs, best margin "
             + ("none yet" if best is None else f"{best:.3f}") + f" (this one {v.margin:.3f})")
-    good = sorted(_passing(verified), key=rank_key)
+    if best is not None and left() > 0.5:
+        # Among designs as good as the best (within TIE), the simplest: fewest parts, BOM
+        # lines and parts to buy.
+        v = _polish(spec, cands, best, offsets, seed, left, stats)
+        if v is not None:
+            (verified if v.margin >= 0 else failed).append(v)
+    good = _distinct(sorted(_passing(verified), key=rank_key))
     designs = good[:top]
-    if status == "feasible" and best is not None and left() > 0.2 and bound is None:
-        pass
+    if designs and designs[0].analysis.large == {}:
+        # The figures a builder wants (swing, THD, clip limits) for the designs reported.
+        designs = sorted(verify(spec, cands, [d.choice for d in designs], large_signal=True), key=rank_key)
     notes = []
     if status == "feasible":
         notes.append("time limit reached: the designs are the best verified so far")
+    elif status == "optimal":
+        notes.append("the first design is proved best" + (
+            f"; the top {len(designs)} are proved the best {len(designs)}" if topk_proved and len(designs) > 1 else
+            "" if len(designs) == 1 else "; the others are the next best verified"))
     stats["seconds"] = round(time.monotonic() - start, 2)
     stats["offsets"] = {k: round(v, 3) for k, v in offsets.items()}
     res = SearchResult(status, designs, cands.topology, bound=bound, near_misses=sorted(failed, key=rank_key)[:3],
@@ -276,6 +301,31 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
 
         res.conflicts = explain(spec, cands, seed, deadline + 30.0)
     return res
+
+
+def _polish(spec, cands, best, offsets, seed, left, stats) -> Verified | None:
+    sm = _model(spec, cands, [], best - TIE, offsets)
+    parts, lines, bought, tie = sm.simplicity()
+    sm.m.minimize(parts * 10**4 + lines * 10**2 + bought)
+    solver = _solver(seed, max(left() - 0.3, 0.2), left())
+    st = solver.solve(sm.m)
+    stats["solves"] += 1
+    if st not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return None
+    pick, tr = sm.chosen(solver.boolean_value)
+    stats["verified"] += 1
+    return verify(spec, cands, [Choice.of(pick, tr)])[0]
+
+
+def _distinct(vs: list[Verified]) -> list[Verified]:
+    """Keep the first of designs with the same transistor and values (stock or bought alike)."""
+    out, seen = [], set()
+    for v in vs:
+        key = (v.design.transistor, tuple((p.role, p.input, round(p.value, 15)) for p in v.design.parts))
+        if key not in seen:
+            seen.add(key)
+            out.append(v)
+    return out
 
 
 def _values_key(cands: Candidates, ch: Choice) -> tuple:

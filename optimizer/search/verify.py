@@ -90,8 +90,15 @@ def design_of(spec: Spec, cands: Candidates, choice: Choice) -> tuple[Design, di
     return design, {ref: it for ref, _, _, it in placed}
 
 
-def verify(spec: Spec, cands: Candidates, choices: list[Choice]) -> list[Verified]:
-    """Analyse every choice at every corner (designs of one structure share a batch)."""
+def verify(spec: Spec, cands: Candidates, choices: list[Choice], large_signal: bool | None = None) -> list[Verified]:
+    """Analyse every choice at every corner (designs of one structure share a batch).
+
+    Large-signal figures (harmonic balance) are found when a target needs them (headroom,
+    swing, distortion, an input's largest level) or when ``large_signal`` asks.
+    """
+    if large_signal is None:
+        t = spec.targets
+        large_signal = t.required_swing() is not None or any(i.max_level is not None for i in spec.inputs)
     built = [(c, *design_of(spec, cands, c)) for c in choices]
     groups: dict[tuple, list[int]] = {}
     for i, (c, d, _) in enumerate(built):
@@ -99,7 +106,7 @@ def verify(spec: Spec, cands: Candidates, choices: list[Choice]) -> list[Verifie
         groups.setdefault(key, []).append(i)
     out: list[Verified | None] = [None] * len(built)
     for idx in groups.values():
-        ans = analyse_many([built[i][1] for i in idx])
+        ans = analyse_many([built[i][1] for i in idx], large_signal=large_signal)
         for i, an in zip(idx, ans):
             c, d, items = built[i]
             res = judge(an, spec)

@@ -379,12 +379,15 @@ _KINDS = (
 
 
 def parse_tolerance(text: object) -> float:
-    """Read a tolerance: ``5 %``, ``0.5%`` or a tolerance letter (``J`` = 5 %). Returns a fraction."""
+    """Read a tolerance: ``5 %``, ``0.5%`` or a tolerance letter (``J`` = 5 %). Returns a fraction.
+
+    ``0 %`` is allowed: ideal parts, for comparisons that leave tolerances out.
+    """
     if isinstance(text, str) and text.strip() in TOLERANCE_LETTERS:
         return TOLERANCE_LETTERS[text.strip()]
     frac = parse_quantity(text, "percent")
-    if not 0 < frac < 1:
-        raise _fail(text, "tolerance", "it must be above 0 % and below 100 %", "write e.g. 5 %")
+    if not 0 <= frac < 1:
+        raise _fail(text, "tolerance", "it must be from 0 % up to (not including) 100 %", "write e.g. 5 %")
     return frac
 
 

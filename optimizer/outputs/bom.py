@@ -1,0 +1,406 @@
+"""The bill of materials of one design, and the list of what has to be bought.
+
+One BOM line per distinct part: parts of the same kind, value, tolerance, type, rating and
+source share a line and list all their designators. Every polarised capacitor carries its
+orientation in words, worked out from the DC voltage across it at every corner of the
+analysis; a capacitor whose DC voltage changes sign over the corners is marked non-polar.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import re
+
+from ..catalog.parts import default_capacitor_type
+from ..spec.quantities import format_code, format_si
+
+__all__ = ["BOM_COLUMNS", "BUY_COLUMNS", "bom_rows", "bom_csv", "bom_md", "buy_rows", "buy_csv", "node_words",
+           "designator_key", "power_text", "load_stock_for"]
+
+BOM_COLUMNS = ("designators", "code", "value", "kind", "type", "tolerance", "rating", "quantity", "source", "price",
+               "orientation", "note")
+BUY_COLUMNS = ("kind", "code", "value", "type", "tolerance", "rating", "quantity", "unit_price", "line_cost",
+               "designators", "note")
+
+_KIND_ORDER = {"resistor": 0, "capacitor": 1, "potentiometer": 2, "transistor": 3}
+_KIND_OF_PREFIX = {"R": "resistor", "C": "capacitor", "RV": "potentiometer", "VR": "potentiometer", "P": "potentiometer",
+                   "Q": "transistor"}
+_STOCK_KIND = {"resistor": "resistor", "capacitor": "capacitor", "potentiometer": "pot", "transistor": "transistor"}
+_FRACTIONS = {0.125: "1/8", 0.25: "1/4", 0.5: "1/2"}
+
+
+def designator_key(ref: str) -> tuple[str, int]:
+    """Sort key for designators: letters, then the number (R2 before R10)."""
+    m = re.match(r"^([A-Za-z]+)(\d+)$", ref)
+    return (m.group(1), int(m.group(2))) if m else (ref, 0)
+
+
+def _kind_of(ref: str) -> str:
+    m = re.match(r"^([A-Za-z]+)", ref)
+    return _KIND_OF_PREFIX.get(m.group(1) if m else "", "resistor")
+
+
+def power_text(watts: float) -> str:
+    """A resistor power rating as builders write it: ``1/4 W``, ``1 W``."""
+    for w, frac in _FRACTIONS.items():
+        if abs(watts - w) < 1e-9:
+            return f"{frac} W"
+    return f"{watts:g} W"
+
+
+def _pct(tol: float | None) -> str:
+    return "" if tol is None else f"{tol * 100:g} %"
+
+
+def _volts(v: float) -> str:
+    return f"{v:+.2f} V".replace("-", "−")
+
+
+# ---------------------------------------------------------------------------------------
+# Where a capacitor lead goes, in words
+
+
+def _input_name(design, k: int) -> str:
+    names = getattr(design, "input_names", ()) or ()
+    if 0 < k <= len(names) and names[k - 1]:
+        return f"input {k} ({names[k - 1]})"
+    return f"input {k}"
+
+
+def node_words(node: str, circuit, design, away_from: str = "") -> str:
+    """A circuit node in a builder's words, named by the part it connects to.
+
+    ``b`` is "Q1 base", ``c`` "Q1 collector", ``e``/``e2`` "Q1 emitter side", ``a{k}`` and
+    ``w{k}`` "the input-k side away from the source", ``src{k}`` "the input-k jack", ``out``
+    "the output", ``vcc`` "the supply (+)" and ``0`` "ground". ``away_from`` is the element
+    whose lead this is, left out when naming the parts on the node.
+    """
+    q = circuit.transistors[0].ref if circuit.transistors else "Q1"
+    others = sorted({e.ref for e, _ in circuit.neighbours(node) if e.part and e.ref != away_from}, key=designator_key)
+    via = f" ({', '.join(others)})" if others else ""
+    if node == "0":
+        return "ground"
+    if node == circuit.supply_node:
+        return "the supply (+)"
+    if node == circuit.output_node:
+        return "the output"
+    if node == "b":
+        return f"{q} base"
+    if node == "c":
+        return f"{q} collector"
+    if node in ("e", "e2"):
+        return f"{q} emitter side{via}"
+    m = re.fullmatch(r"(a|w|src)(\d+)", node)
+    if m:
+        k = int(m.group(2))
+        if m.group(1) == "src":
+            return f"the {_input_name(design, k)} jack"
+        return f"the {_input_name(design, k)} side away from the source{via}"
+    return circuit.describe_node(node)
+
+
+def _orientation(ref: str, cap: dict, an, design) -> dict:
+    """Which way a polarised capacitor goes, from the DC voltage across it over the corners."""
+    c = an.circuit
+    nodes = c.element(ref).nodes
+    lo = an.low.get(f"capv:{ref}", cap.get("dc_min", 0.0))
+    hi = an.high.get(f"capv:{ref}", cap.get("dc_max", 0.0))
+    nom = an.nominal.get(f"capv:{ref}", 0.5 * (lo + hi))
+    if cap.get("needs_non_polar") or cap.get("plus_node") is None:
+        text = (f"{ref}: non-polar — the DC voltage across it runs from {_volts(lo)} to {_volts(hi)} over the corners "
+                f"(it changes sign or stays near 0 V), so fit a non-polar part either way round")
+        return {"ref": ref, "plus_node": None, "minus_node": None, "dc": nom, "dc_min": lo, "dc_max": hi,
+                "non_polar": True, "text": text}
+    plus, minus = cap["plus_node"], cap["minus_node"]
+    sign = 1.0 if plus == nodes[0] else -1.0
+    dc, dlo, dhi = sign * nom, min(sign * lo, sign * hi), max(sign * lo, sign * hi)
+    text = (f"{ref}: + toward {node_words(plus, c, design, ref)}, − toward {node_words(minus, c, design, ref)}; "
+            f"{_volts(dc)} DC ({dlo:.2f} to {dhi:.2f} V over the corners)")
+    return {"ref": ref, "plus_node": plus, "minus_node": minus, "dc": dc, "dc_min": dlo, "dc_max": dhi,
+            "non_polar": False, "text": text}
+
+
+def load_stock_for(spec):
+    """The stock list the spec's search chose from, or None (series-only, no list, unreadable)."""
+    pp = getattr(spec, "parts", None)
+    if pp is None or pp.stock is None or pp.use == "series-only":
+        return None
+    from ..errors import FileProblems
+    from ..spec.stockfile import load_stock
+
+    try:
+        return load_stock(pp.stock)
+    except (FileProblems, OSError):
+        return None
+
+
+# ---------------------------------------------------------------------------------------
+# BOM rows
+
+
+def _stock_item(stock, it):
+    if stock is None or it is None or it.stock_line is None:
+        return None
+    if 0 <= it.stock_line < len(stock.items):
+        return stock.items[it.stock_line]
+    return None
+
+
+def _transistor_row(v, rating: dict, stock) -> dict:
+    from ..catalog.transistors import transistor_types
+
+    d = v.design
+    ref = rating.get("transistor", {}).get("ref", "Q1") if rating else "Q1"
+    tt = transistor_types().get(d.transistor)
+    diss = (rating or {}).get("transistor", {}).get("dissipation")
+    tmax = (rating or {}).get("transistor", {}).get("ambient_max", d.ambient.max)
+    notes = []
+    if tt is not None:
+        pins = "-".join(tt.pinout)
+        orientation = f"{ref}: pins {pins}, flat face toward you, leads down (check your part's datasheet)"
+        ttype = f"{tt.polarity.upper()}, {tt.package}"
+        rating_text = f"VCEO {tt.vceo:g} V, {format_si(tt.ptot_at(tmax), 'W')} at {tmax - 273.15:.0f} °C"
+        if diss is not None:
+            notes.append(f"dissipates up to {format_si(diss, 'W')}")
+    else:
+        orientation = f"{ref}: pinout not in the catalog; read it from your part's datasheet"
+        ttype = d.model.polarity.upper()
+        rating_text = ""
+    source, price = "buy", None
+    if stock is not None:
+        for i, s in enumerate(stock.items):
+            if s.kind == "transistor" and str(s.value) == d.transistor:
+                source, price = "stock", s.price
+                notes.append(f"stock line {s.line}: {s.quantity} in the drawer" + (f", {s.note}" if s.note else ""))
+                break
+    return {"designators": ref, "refs": [ref], "code": d.transistor, "value": "", "si": None, "kind": "transistor",
+            "type": ttype, "tolerance": "", "rating": rating_text, "quantity": 1, "source": source,
+            "price": price, "orientation": orientation, "orientations": [], "note": "; ".join(notes),
+            "stock_line": None}
+
+
+def bom_rows(v, rating: dict | None, stock=None) -> list[dict]:
+    """The BOM of one verified design: one row per distinct part, transistor last.
+
+    Parameters
+    ----------
+    v
+        A :class:`~optimizer.search.verify.Verified` (or anything with ``design``,
+        ``analysis`` and ``items``).
+    rating
+        Its ratings (:func:`~optimizer.analysis.evaluate.ratings`).
+    stock
+        The stock list the search chose from, for prices, ratings and notes of stock parts.
+
+    Returns
+    -------
+    list of dict
+        Keys: the :data:`BOM_COLUMNS` (``price`` a float or None, ``quantity`` an int) plus
+        ``refs`` (the designators as a list), ``si`` (the value as a float),
+        ``orientations`` (one dict per polarised or non-polar capacitor: ``ref``,
+        ``plus_node``, ``minus_node``, ``dc``, ``dc_min``, ``dc_max``, ``non_polar``,
+        ``text``) and ``stock_line`` (the stock file line, or None).
+    """
+    d, an = v.design, v.analysis
+    items = getattr(v, "items", {}) or {}
+    rating = rating or {}
+    rr = {r["ref"]: r for r in rating.get("resistors", [])}
+    cr = {r["ref"]: r for r in rating.get("capacitors", [])}
+    groups: dict[tuple, dict] = {}
+    for p in d.parts:
+        kind = _kind_of(p.ref)
+        it = items.get(p.ref)
+        st = _stock_item(stock, it)
+        source = "stock" if (it is not None and it.source == "stock") else "buy"
+        notes: list[str] = []
+        orient = None
+        if kind == "capacitor":
+            code = format_code(p.value, "capacitance")
+            ptype = p.type or (it.type if it else "") or default_capacitor_type(p.value)
+            cap = cr.get(p.ref)
+            rating_text = f"{cap['rating']:g} V" if cap else ""
+            if cap and ptype == "electrolytic":
+                orient = _orientation(p.ref, cap, an, d)
+                if orient["non_polar"]:
+                    ptype = "bipolar"
+                    notes.append("needs a non-polar part (bipolar electrolytic, or film if it fits)")
+            if st is not None and st.rating is not None and cap and st.rating < cap["rating"] - 1e-9:
+                notes.append(f"the drawer part is rated {st.rating:g} V, below the {cap['rating']:g} V needed")
+        elif kind == "potentiometer":
+            code = format_code(p.value, "resistance")
+            ptype = f"{p.taper} pot"
+            rating_text = ""
+        else:
+            code = format_code(p.value, "resistance")
+            ptype = p.type or (it.type if it else "") or (st.type if st is not None and st.type else "") or "film"
+            res = rr.get(p.ref)
+            rating_text = power_text(res["rating"]) if res else ""
+            if res and not res["full_supply_ok"]:
+                notes.append(f"{p.ref}: {format_si(res['full_supply'], 'W')} if the full supply ever lands across it "
+                             f"(a fault elsewhere); {rating_text} is enough in normal use")
+            if st is not None and st.rating is not None and res and st.rating < res["rating"] - 1e-12:
+                notes.append(f"the drawer part is rated {power_text(st.rating)}, below the {rating_text} needed")
+        tol = p.tolerance
+        key = (kind, round(p.value, 15), round(tol, 6), ptype, rating_text, source,
+               st.line if st is not None else None)
+        row = groups.get(key)
+        if row is None:
+            price = it.price if (source == "stock" and it is not None and it.price is not None) else (
+                st.price if (source == "stock" and st is not None) else None)
+            row = {"refs": [], "code": code, "value": repr(float(p.value)), "si": float(p.value), "kind": kind,
+                   "type": ptype, "tolerance": _pct(tol), "rating": rating_text, "quantity": 0, "source": source,
+                   "price": price, "orientations": [], "notes": [], "stock_line": st.line if st is not None else None}
+            if st is not None:
+                extra = [f"{st.quantity} in the drawer"]
+                if st.rating is not None:
+                    extra.append(f"rated {power_text(st.rating) if kind != 'capacitor' else f'{st.rating:g} V'}")
+                if st.note:
+                    extra.append(st.note)
+                row["notes"].append(f"stock line {st.line}: " + ", ".join(extra))
+            groups[key] = row
+        row["refs"].append(p.ref)
+        row["quantity"] += 1
+        if orient is not None:
+            row["orientations"].append(orient)
+        for n in notes:
+            if n not in row["notes"]:
+                row["notes"].append(n)
+    rows = []
+    for row in groups.values():
+        row["refs"].sort(key=designator_key)
+        row["orientations"].sort(key=lambda o: designator_key(o["ref"]))
+        row["designators"] = ", ".join(row["refs"])
+        row["orientation"] = "; ".join(o["text"] for o in row["orientations"])
+        row["note"] = "; ".join(row.pop("notes"))
+        rows.append(row)
+    rows.sort(key=lambda r: (_KIND_ORDER[r["kind"]], designator_key(r["refs"][0])))
+    if an.circuit.transistors:
+        rows.append(_transistor_row(v, rating, stock))
+    return rows
+
+
+def _money(x: float | None) -> str:
+    return "" if x is None else f"{x:.2f}"
+
+
+def bom_csv(rows: list[dict]) -> str:
+    """The BOM as CSV with the header of :data:`BOM_COLUMNS`."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(BOM_COLUMNS)
+    for r in rows:
+        w.writerow([_money(r[c]) if c == "price" else r[c] for c in BOM_COLUMNS])
+    return buf.getvalue()
+
+
+def _md_cell(x: object) -> str:
+    return str(x).replace("|", "\\|").replace("\n", " ")
+
+
+def bom_md(rows: list[dict], title: str) -> str:
+    """The BOM as a Markdown table, with the capacitor orientations listed under it."""
+    out = [f"# {title}", ""]
+    heads = ["Designators", "Part", "Kind", "Type", "Tol.", "Rating", "Qty", "Source", "Each"]
+    out.append("| " + " | ".join(heads) + " |")
+    out.append("|" + "|".join(["---"] * len(heads)) + "|")
+    for r in rows:
+        cells = [r["designators"], r["code"], r["kind"], r["type"], r["tolerance"], r["rating"], r["quantity"],
+                 r["source"], _money(r["price"])]
+        out.append("| " + " | ".join(_md_cell(c) for c in cells) + " |")
+    total = sum(r["quantity"] for r in rows)
+    out += ["", f"{total} parts on {len(rows)} lines; "
+            f"{sum(r['quantity'] for r in rows if r['source'] == 'stock')} from stock, "
+            f"{sum(r['quantity'] for r in rows if r['source'] != 'stock')} to buy.", ""]
+    orient = [o["text"] for r in rows for o in r["orientations"]] + [r["orientation"] for r in rows
+                                                                     if r["kind"] == "transistor" and r["orientation"]]
+    if orient:
+        out += ["## Which way round", ""] + [f"- {_md_cell(t)}" for t in orient] + [""]
+    notes = [(r["designators"], r["note"]) for r in rows if r["note"]]
+    if notes:
+        out += ["## Notes", ""] + [f"- {_md_cell(refs)}: {_md_cell(n)}" for refs, n in notes] + [""]
+    return "\n".join(out)
+
+
+# ---------------------------------------------------------------------------------------
+# What to buy
+
+
+def _stock_price(stock, kind: str, value, ptype: str) -> float | None:
+    """The price the stock list gives for the same part (the price of one piece bought)."""
+    if stock is None:
+        return None
+    sk = _STOCK_KIND[kind]
+    best = None
+    for s in stock.items:
+        if s.kind != sk or s.price is None:
+            continue
+        if kind == "transistor":
+            same = str(s.value) == str(value)
+        else:
+            same = isinstance(s.value, float) and math.isclose(s.value, value, rel_tol=1e-9) and (
+                not s.type or not ptype or s.type == ptype or kind == "potentiometer")
+        if same and (best is None or s.price < best):
+            best = s.price
+    return best
+
+
+def buy_rows(designs_rows, stock=None) -> list[dict]:
+    """What is not in stock, one line per part (kind, value, type, tolerance, rating).
+
+    ``designs_rows`` is the BOM of one design (a list of rows) or of several (a list of such
+    lists, to buy for several builds at once). Unit prices come from the BOM row, else from
+    the stock list's price for the same part; a last row with ``kind`` "total" sums the
+    line costs when any price is known, and says how many lines have none.
+    """
+    seq = list(designs_rows)
+    if seq and isinstance(seq[0], list):
+        flat = [r for rows in seq for r in rows]
+    else:
+        flat = seq
+    groups: dict[tuple, dict] = {}
+    for r in flat:
+        if r["source"] == "stock":
+            continue
+        key = (r["kind"], r["code"], r["type"], r["tolerance"], r["rating"])
+        g = groups.get(key)
+        if g is None:
+            price = r.get("price")
+            if price is None:
+                price = _stock_price(stock, r["kind"], r["si"] if r["si"] is not None else r["code"], r["type"])
+            g = {"kind": r["kind"], "code": r["code"], "value": r["value"], "type": r["type"],
+                 "tolerance": r["tolerance"], "rating": r["rating"], "quantity": 0, "unit_price": price,
+                 "line_cost": None, "refs": [], "note": ""}
+            groups[key] = g
+        g["quantity"] += r["quantity"]
+        g["refs"] += [x for x in r["refs"] if x not in g["refs"]]
+    rows = sorted(groups.values(), key=lambda g: (_KIND_ORDER[g["kind"]], float(g["value"]) if g["value"] else 0.0,
+                                                  g["code"], g["type"], g["tolerance"], g["rating"]))
+    for g in rows:
+        g["refs"].sort(key=designator_key)
+        g["designators"] = ", ".join(g["refs"])
+        if g["unit_price"] is not None:
+            g["line_cost"] = round(g["unit_price"] * g["quantity"], 6)
+        else:
+            g["note"] = "price unknown"
+    if rows:
+        known = [g["line_cost"] for g in rows if g["line_cost"] is not None]
+        missing = sum(1 for g in rows if g["line_cost"] is None)
+        note = "all prices known" if not missing else (
+            f"{missing} line(s) without a price are not included" if known else "no prices known")
+        rows.append({"kind": "total", "code": "", "value": "", "type": "", "tolerance": "", "rating": "",
+                     "quantity": sum(g["quantity"] for g in rows), "unit_price": None,
+                     "line_cost": round(sum(known), 6) if known else None, "refs": [], "designators": "",
+                     "note": note})
+    return rows
+
+
+def buy_csv(rows: list[dict]) -> str:
+    """The buy list as CSV with the header of :data:`BUY_COLUMNS`."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(BUY_COLUMNS)
+    for r in rows:
+        w.writerow([_money(r[c]) if c in ("unit_price", "line_cost") else r[c] for c in BUY_COLUMNS])
+    return buf.getvalue()
