@@ -248,3 +248,115 @@ def cmd_design(args) -> int:
         if writer is not None and writer.written:
             _say(args, f"\nwrote {len(writer.written)} files to {out_dir}/ (report.html, bom.csv, design-N.yaml, design-N.cir ...)")
     return EXIT_OK if result.designs else EXIT_UNMET
+
+
+def cmd_compare(args) -> int:
+    """The same spec designed at several nominal supplies, side by side."""
+    import csv
+    import io
+    import math
+    from dataclasses import replace
+    from pathlib import Path
+
+    from .cli import EXIT_UNMET
+    from .outputs.results import design_entry
+    from .search.solve import search
+    from .spec.quantities import format_code, parse_quantity
+
+    spec, stock = _spec_with_overrides(args)
+    supplies = []
+    for text in args.supply:
+        try:
+            v = float(text) if text.replace(".", "", 1).isdigit() else parse_quantity(text, "voltage")
+        except ValueSyntaxError as err:
+            raise FileProblems([Problem("command line", 0, "--supply", str(err))]) from None
+        if not 1.5 <= v <= 48:
+            raise FileProblems([Problem("command line", 0, "--supply", f"{text!r} is out of range (allowed: 1.5 V to 48 V)")])
+        supplies.append(v)
+    say = _progress(args)
+    rows, entries = [], []
+    for v in supplies:
+        sp = replace(spec, supply=spec.supply.scaled(v))
+        if say:
+            say(f"supply {v:g} V ({sp.supply.min:.3g}–{sp.supply.max:.3g} V)")
+        r = search(sp, stock=stock, progress=say)
+        row = {"supply": v, "supply_min": sp.supply.min, "supply_max": sp.supply.max, "status": r.status,
+               "feasible": bool(r.designs)}
+        if r.designs:
+            best = r.designs[0]
+            an = best.analysis
+            n = an.circuit.n_inputs
+            row.update({
+                "margin": best.margin,
+                "parts": len(best.design.parts) + 1,
+                "transistor": best.design.transistor,
+                "values": " ".join(f"{p.ref}={format_code(p.value, 'capacitance' if p.ref.startswith('C') else 'resistance')}"
+                                   for p in best.design.parts),
+                "gain_db": min(an.nominal[f"gain_db:{k}"] for k in range(1, n + 1)),
+                "gain_db_worst_low": min(an.low[f"gain_db:{k}"] for k in range(1, n + 1)),
+                "swing": an.large_worst.get("swing"),
+                "headroom_db": (20 * math.log10(an.large_worst["swing"] / sp.targets.headroom_nominal)
+                                if sp.targets.headroom_nominal and an.large_worst.get("swing") else None),
+                "input_impedance": min(an.low[f"input_impedance:{k}"] for k in range(1, n + 1)),
+                "supply_current": an.high["supply_current"],
+                "battery_hours": (sp.supply.capacity / an.high["supply_current"] / 3600) if sp.supply.capacity else None,
+                "design": design_entry(1, best),
+            })
+        else:
+            row.update({"margin": None, "why": [c.text for c in r.conflicts] or list(r.notes)})
+        rows.append(row)
+    out_dir = Path(args.out) if args.out else Path("outputs") / f"{spec.name}-compare"
+    from .outputs.files import OutputDir
+
+    out = OutputDir(out_dir, args.force)
+    out.check(["compare.csv", "compare.json", "compare.png"])
+    cols = ["supply", "status", "margin", "parts", "transistor", "gain_db", "headroom_db", "swing", "input_impedance",
+            "supply_current", "battery_hours", "values"]
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(cols + ["why"])
+    for row in rows:
+        w.writerow([("" if row.get(c) is None else (f"{row[c]:.6g}" if isinstance(row.get(c), float) else row.get(c)))
+                    for c in cols] + ["; ".join(row.get("why", []))])
+    out.write("compare.csv", buf.getvalue())
+    plain = [{k: v for k, v in r.items() if k != "design"} | ({"design": r["design"]} if "design" in r else {}) for r in rows]
+    import json
+
+    out.write("compare.json", json.dumps({"spec": spec.name, "supplies": plain}, indent=2, allow_nan=False) + "\n")
+    try:
+        from .outputs.plots import compare_plot
+
+        out.write("compare.png", compare_plot(rows))
+    except ImportError:
+        pass
+    if args.json:
+        print_json({"spec": spec.name, "supplies": plain})
+    else:
+        from .outputs.text import table
+        from .spec.quantities import format_si
+
+        def cell(row, key, fmt):
+            val = row.get(key)
+            return "" if val is None else fmt(val)
+
+        head = ["", *[f"{r['supply']:g} V" for r in rows]]
+        lines = [
+            ["status", *[r["status"] for r in rows]],
+            ["margin", *[cell(r, "margin", lambda x: f"{x:+.3f}") for r in rows]],
+            ["parts", *[cell(r, "parts", str) for r in rows]],
+            ["transistor", *[cell(r, "transistor", str) for r in rows]],
+            ["gain (nominal)", *[cell(r, "gain_db", lambda x: f"{x:+.1f} dB") for r in rows]],
+            ["headroom (worst)", *[cell(r, "headroom_db", lambda x: f"{x:.1f} dB") for r in rows]],
+            ["swing (worst)", *[cell(r, "swing", lambda x: format_si(x, "V") + " pk") for r in rows]],
+            ["input Z (worst)", *[cell(r, "input_impedance", lambda x: format_si(x, "Ω")) for r in rows]],
+            ["current (worst)", *[cell(r, "supply_current", lambda x: format_si(x, "A")) for r in rows]],
+            ["battery life", *[cell(r, "battery_hours", lambda x: f"{x:.0f} h") for r in rows]],
+        ]
+        print(table(head, lines, "l" + "r" * len(rows)))
+        for r in rows:
+            if r.get("values"):
+                print(f"  {r['supply']:g} V: {r['values']}")
+            for why in r.get("why", []):
+                print(f"  {r['supply']:g} V not met: {why}")
+        _say(args, f"\nwrote compare.csv, compare.json and compare.png to {out_dir}/")
+    return EXIT_OK if any(r["feasible"] for r in rows) else EXIT_UNMET

@@ -17,7 +17,7 @@ from ..catalog.parts import default_capacitor_type
 from ..spec.quantities import format_code, format_si
 
 __all__ = ["BOM_COLUMNS", "BUY_COLUMNS", "bom_rows", "bom_csv", "bom_md", "buy_rows", "buy_csv", "node_words",
-           "designator_key", "power_text", "load_stock_for"]
+           "designator_key", "part_order", "power_text", "load_stock_for"]
 
 BOM_COLUMNS = ("designators", "code", "value", "kind", "type", "tolerance", "rating", "quantity", "source", "price",
                "orientation", "note")
@@ -35,6 +35,12 @@ def designator_key(ref: str) -> tuple[str, int]:
     """Sort key for designators: letters, then the number (R2 before R10)."""
     m = re.match(r"^([A-Za-z]+)(\d+)$", ref)
     return (m.group(1), int(m.group(2))) if m else (ref, 0)
+
+
+def part_order(ref: str) -> tuple[int, str, int]:
+    """Sort key in a builder's order: resistors, capacitors, pots, transistors, then by number."""
+    letters, number = designator_key(ref)
+    return (_KIND_ORDER.get(_KIND_OF_PREFIX.get(letters, ""), 9), letters, number)
 
 
 def _kind_of(ref: str) -> str:
@@ -64,7 +70,7 @@ def _volts(v: float) -> str:
 
 def _input_name(design, k: int) -> str:
     names = getattr(design, "input_names", ()) or ()
-    if 0 < k <= len(names) and names[k - 1]:
+    if 0 < k <= len(names) and names[k - 1] and names[k - 1] != str(k):
         return f"input {k} ({names[k - 1]})"
     return f"input {k}"
 
@@ -328,7 +334,8 @@ def bom_md(rows: list[dict], title: str) -> str:
 
 
 def _stock_price(stock, kind: str, value, ptype: str) -> float | None:
-    """The price the stock list gives for the same part (the price of one piece bought)."""
+    """The price the stock list gives for the same part (its price column is the price of one
+    piece when bought), the lowest when several lines match."""
     if stock is None:
         return None
     sk = _STOCK_KIND[kind]
@@ -339,8 +346,9 @@ def _stock_price(stock, kind: str, value, ptype: str) -> float | None:
         if kind == "transistor":
             same = str(s.value) == str(value)
         else:
+            # A capacitor's type sets its price; a resistor's hardly does.
             same = isinstance(s.value, float) and math.isclose(s.value, value, rel_tol=1e-9) and (
-                not s.type or not ptype or s.type == ptype or kind == "potentiometer")
+                kind != "capacitor" or not s.type or not ptype or s.type == ptype)
         if same and (best is None or s.price < best):
             best = s.price
     return best

@@ -46,10 +46,11 @@ def bringup_rows(v) -> list[dict]:
         "vb": (f"Near 0 V: {rtop} open or the base shorted to ground. Near the supply: {rbot} open or missing. "
                f"Clearly off but not at a rail: {rtop} and {rbot} swapped or of the wrong value — read their colour "
                f"bands again."),
-        "ve": (f"It should sit about 0.6–0.7 V {'below' if not pnp else 'above'} the base. The same as the base: the "
-               f"base–emitter junction is open (wrong pinout or a damaged {qn}). At {'0 V' if not pnp else 'the supply'} "
-               f"while the base looks right: {qn} not conducting, or an emitter lead not soldered. Far from the base "
-               f"by more than 1 V: {qn} fitted the wrong way round."),
+        "ve": (f"It should sit about 0.6–0.7 V {'below' if not pnp else 'above'} the base. The same as the base: "
+               f"the base–emitter junction is shorted (a damaged {qn} or a solder bridge). Near "
+               f"{'0 V' if not pnp else 'the supply'} while the base reads a little high: {qn} is not conducting — "
+               f"wrong pinout, a damaged {qn} or an unsoldered lead. Right distance from the base but outside the "
+               f"range: the base is off too, so look at the base first."),
         "vc": (f"Close to {lead}: {qn} is not conducting — check it is the right way round (pinout), the base bias "
                f"and {remit}. Close to the emitter (less than about 0.5 V between them): {qn} is saturated — "
                f"check {rc} is not too large and the divider {rtop}/{rbot} is not biasing too hard. "

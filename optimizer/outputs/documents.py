@@ -15,6 +15,9 @@ __all__ = ["MONTE_CARLO_SAMPLES", "render_figures", "write_documents"]
 
 #: Random builds for the Monte Carlo plot and yield table of design 1.
 MONTE_CARLO_SAMPLES = 400
+#: Of those, how many also get the large-signal (swing) analysis, which costs about 0.1 s
+#: each for a two-input stage; the yield table states the count.
+MONTE_CARLO_LARGE = 40
 
 #: File name of each figure.
 FIGURE_FILES = {"schematic_svg": "schematic.svg", "schematic_png": "schematic.png", "frequency": "frequency.png",
@@ -26,7 +29,7 @@ def _why(err: BaseException) -> str:
     return f"{type(err).__name__}: {text}" if text else type(err).__name__
 
 
-def render_figures(spec, v, mc: dict | None) -> dict:
+def render_figures(spec, v, mc: dict | None, mc_problem: str = "") -> dict:
     """Every figure of one design, drawn by the plot and schematic modules where they exist.
 
     Returns a dict with the figures that could be drawn (``schematic_svg`` text, the others
@@ -36,6 +39,8 @@ def render_figures(spec, v, mc: dict | None) -> dict:
     figures: dict = {"missing": {}}
     if mc is not None:
         figures["monte_carlo"] = mc
+    if mc_problem:
+        figures["missing"]["monte_carlo"] = mc_problem
     try:
         from . import schematic
     except ImportError as err:
@@ -64,7 +69,7 @@ def render_figures(spec, v, mc: dict | None) -> dict:
     }
     for key, call in calls.items():
         if call is None:
-            figures["missing"][key] = "no Monte Carlo run"
+            figures["missing"][key] = mc_problem or "no Monte Carlo run"
             continue
         try:
             data = call()
@@ -78,15 +83,21 @@ def render_figures(spec, v, mc: dict | None) -> dict:
     return figures
 
 
-def _monte_carlo(spec, v) -> dict | None:
+def _monte_carlo(spec, v) -> tuple[dict | None, str]:
+    """The Monte Carlo run of one design, and why it is missing or incomplete ("" when whole)."""
     from ..analysis.montecarlo import monte_carlo
 
     an = v.analysis
+    args = (v.design, an.circuit, an.conditions, MONTE_CARLO_SAMPLES, spec.search.seed)
     try:
-        return monte_carlo(v.design, an.circuit, an.conditions, MONTE_CARLO_SAMPLES, spec.search.seed, spec,
-                           v.design.thd_limit)
-    except Exception:  # the report names the missing plot; the other documents still get written
-        return None
+        return monte_carlo(*args, spec, v.design.thd_limit, large_samples=MONTE_CARLO_LARGE), ""
+    except Exception as err:  # without the yields the spread can still be drawn
+        first = _why(err)
+    try:
+        return monte_carlo(*args, None, v.design.thd_limit, large_samples=MONTE_CARLO_LARGE), (
+            f"yields not computed ({first})")
+    except Exception as err:  # the report names the missing plot; the other documents still get written
+        return None, f"Monte Carlo failed ({_why(err)})"
 
 
 def write_documents(out, spec, result, rated: dict) -> None:
@@ -110,8 +121,8 @@ def write_documents(out, spec, result, rated: dict) -> None:
     out.write("bom.csv", bom_csv(rows))
     out.write("bom.md", bom_md(rows, f"Parts list: {spec.name}, design 1 ({v.design.topology}, {v.design.transistor})"))
     out.write("buy.csv", buy_csv(buy_rows(rows, stock)))
-    mc = _monte_carlo(spec, v)
-    figures = render_figures(spec, v, mc)
+    mc, mc_problem = _monte_carlo(spec, v)
+    figures = render_figures(spec, v, mc, mc_problem)
     for key, name in FIGURE_FILES.items():
         if key in figures:
             out.write(name, figures[key])

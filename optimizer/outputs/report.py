@@ -14,7 +14,7 @@ import math
 import re
 
 from ..spec.quantities import format_code, format_si
-from .bom import bom_rows, buy_rows, designator_key, load_stock_for
+from .bom import bom_rows, buy_rows, load_stock_for, part_order
 from .bringup import bringup_rows, corners_text
 from .cautions import CAUTIONS
 
@@ -66,11 +66,12 @@ def _png(data: bytes, alt: str) -> str:
 
 
 def _inline_svg(text: str) -> str:
-    """An SVG document as an inline element: no XML prolog, no doctype, no scripts."""
+    """An SVG document as an inline element: no XML prolog, doctype, comments, scripts or metadata."""
     s = re.sub(r"<\?xml[^>]*\?>", "", text)
     s = re.sub(r"<!DOCTYPE[^>]*>", "", s, flags=re.IGNORECASE)
     s = re.sub(r"<!--.*?-->", "", s, flags=re.DOTALL)
     s = re.sub(r"<script\b.*?</script\s*>", "", s, flags=re.DOTALL | re.IGNORECASE)
+    s = re.sub(r"<metadata\b.*?</metadata\s*>", "", s, flags=re.DOTALL | re.IGNORECASE)
     return s.strip()
 
 
@@ -132,7 +133,7 @@ def _ranked(result, rated, stock) -> str:
                              for v in ds])
     row("transistor", [_e(v.design.transistor) for v in ds], ["" for _ in ds])
     rows.append(f'<tr class="sub"><th colspan="{len(ds) + 1}">parts</th></tr>')
-    refs = sorted({p.ref for v in ds for p in v.design.parts}, key=designator_key)
+    refs = sorted({p.ref for v in ds for p in v.design.parts}, key=part_order)
     roles = {}
     for v in ds:
         for p in v.design.parts:
@@ -288,6 +289,8 @@ def report_html(spec, result, rated: dict, figures: dict) -> str:
             body.append(_figure(key, title, caption, figures))
             if key == "montecarlo" and figures.get("monte_carlo"):
                 body.append(_mc_table(figures["monte_carlo"]))
+            if key == "montecarlo" and (figures.get("missing") or {}).get("monte_carlo"):
+                body.append(f'<p class="missing">Monte Carlo: {_e(figures["missing"]["monte_carlo"])}.</p>')
         corners = corners_text(v.analysis)
     else:
         body.append("<p>No design to show.</p>")

@@ -150,7 +150,7 @@ def _draw(circuit, design):
     XD, XBUS, XQ = 0.0, -1.6, 2.4
     dq = 0.7516666666666666, 0.6966666666666667  # schemdraw's BJT terminal offsets from the base
     XC = XQ + dq[0]
-    XCAP = XC + 2.0
+    XCAP = XC + 2.9
     y_low = max(len(lower) * L + 0.5, L + 0.6)  # the lower terminal
     yb = y_low + dq[1]
     y_up = yb + dq[1]
@@ -287,17 +287,27 @@ def _render(drawing, fmt: str) -> bytes:
     bb = drawing.get_bbox()
     x0, x1 = bb.xmin - MARGIN, bb.xmax + MARGIN
     y0, y1 = bb.ymin - MARGIN, bb.ymax + MARGIN
-    size = ((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT)
     rc = {"svg.hashsalt": "stagefit-schematic", "svg.fonttype": "none", "font.family": "DejaVu Sans"}
     with matplotlib.rc_context(rc):
-        fig = Figure(figsize=size, dpi=PNG_DPI)
+        fig = Figure(figsize=((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT), dpi=PNG_DPI)
         FigureCanvasAgg(fig)
         ax = fig.add_axes((0, 0, 1, 1))
         ax.set_axis_off()
         drawing.draw(show=False, canvas=ax)
         ax.set_xlim(x0, x1)
         ax.set_ylim(y0, y1)
-        ax.set_aspect("equal", adjustable="datalim")
+        # schemdraw only estimates text widths: measure the labels and widen the sheet so
+        # none is cut off. The scale (inches per unit) stays, so one pass is enough.
+        renderer = fig.canvas.get_renderer()
+        inv = ax.transData.inverted()
+        for t in ax.texts:
+            e = t.get_window_extent(renderer)
+            (ax_, ay_), (bx_, by_) = inv.transform([[e.x0, e.y0], [e.x1, e.y1]])
+            x0, x1 = min(x0, ax_ - 0.2), max(x1, bx_ + 0.2)
+            y0, y1 = min(y0, ay_ - 0.2), max(y1, by_ + 0.2)
+        fig.set_size_inches((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT)
+        ax.set_xlim(x0, x1)
+        ax.set_ylim(y0, y1)
         buf = io.BytesIO()
         if fmt == "svg":
             fig.savefig(buf, format="svg", metadata={"Date": None}, facecolor="white")

@@ -108,7 +108,7 @@ def _describe(spec: Spec, name: str, t: float) -> Conflict:
         widen = -t * DB_PER_NEPER if math.isfinite(t) else math.inf
         asked = f"{tg.gain.min:+.1f} .. {tg.gain.max:+.1f} dB"
         reach = "none" if never else f"{tg.gain.min - widen:+.1f} .. {tg.gain.max + widen:+.1f} dB"
-        text = (f"the gain window would have to widen by {widen:.1f} dB on each side ({reach}); asked {asked}"
+        text = (f"the gain window would have to widen by at least {widen:.1f} dB on each side ({reach}); asked {asked}"
                 if not never else f"no gain in {asked} goes with the other targets")
     elif name == "headroom":
         need = tg.required_swing()

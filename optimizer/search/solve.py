@@ -32,6 +32,8 @@ from .verify import Choice, Verified, verify
 
 __all__ = ["SearchResult", "search", "TIE", "rank_key"]
 
+_WORKERS = 1
+
 #: Margins closer than this count as equal, so simpler designs win ties.
 TIE = 0.005
 #: How many of the solutions found in one solve are verified.
@@ -57,7 +59,7 @@ _MODEL_TARGET = {"distortion": "headroom", "swing": "headroom"}
 class SearchResult:
     """What a search found."""
 
-    status: str  # "optimal", "feasible" or "infeasible"
+    status: str  # "optimal", "feasible", "infeasible" or "unknown" (time ran out with nothing found)
     designs: list[Verified]
     topology: str
     bound: float | None = None  # no design not listed can have a margin above this
@@ -99,7 +101,7 @@ def _solver(seed: int, det_time: float, wall: float, presolve: bool = False) -> 
     the bundled specs); an infeasibility is always confirmed with the other setting too.
     """
     s = cp_model.CpSolver()
-    s.parameters.num_workers = 1
+    s.parameters.num_workers = _WORKERS
     s.parameters.random_seed = seed
     s.parameters.max_deterministic_time = max(det_time, 0.05)
     s.parameters.max_time_in_seconds = max(wall, 0.1)
@@ -129,6 +131,7 @@ def search(
     time_limit: float | None = None,
     seed: int | None = None,
     progress=None,
+    workers: int = 1,
 ) -> SearchResult:
     """Find the best designs of the spec (see the module docstring).
 
@@ -142,7 +145,12 @@ def search(
         Override the spec's ``search`` settings.
     progress
         Called with a short text as the search goes (for a terminal), or None.
+    workers
+        Solver workers. With more than one the solver's own path varies from run to run; the
+        answer is the same whenever it is proved (the ranking is a total order).
     """
+    global _WORKERS
+    _WORKERS = max(1, int(workers))
     top = top or spec.search.top
     time_limit = time_limit if time_limit is not None else spec.search.time_limit
     seed = spec.search.seed if seed is None else seed
@@ -213,8 +221,11 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     core_cuts: list[Choice] = []
     best_proved = topk_proved = False
     chunk = max(2.0, (deadline - time.monotonic()) / 8)
+    # Keep back time for the polish and for the large-signal figures of the reported designs.
+    reserve = 0.15 * (deadline - time.monotonic()) + (2.0 * top if _needs_large(spec) is False else 0.5 * top)
     polish_at = deadline - 0.2 * (deadline - time.monotonic())
-    while left() > 0.3 and (best is None or time.monotonic() < polish_at):
+    loop_end = deadline - reserve
+    while time.monotonic() < loop_end and (best is None or time.monotonic() < polish_at):
         rounds += 1
         # Phase 1: something better than the best so far. Phase 2 (once the best is proved):
         # something that could still enter the top K, above the K-th best verified.
@@ -226,7 +237,8 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         sm = _model(spec, cands, cuts, floor, offsets, core_cuts)
         if hint is not None:
             sm.hint(hint)
-        solver = _solver(seed, min(left(), chunk), left())
+        budget = max(loop_end - time.monotonic(), 0.1)
+        solver = _solver(seed, min(budget, chunk), budget)
         st = solver.solve(sm.m)
         stats["solves"] += 1
         relaxed = not any(v > 0.002 for v in offsets.values())
@@ -274,7 +286,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         best = good[0].margin if good else None
         say(f"round {rounds}: verified {stats['verified']} designs, best margin "
             + ("none yet" if best is None else f"{best:.3f}") + f" (this one {v.margin:.3f})")
-    if best is not None and left() > 0.5:
+    if best is not None and left() > 0.5 + 0.5 * top:
         # Among designs as good as the best (within TIE), the simplest: fewest parts, BOM
         # lines and parts to buy.
         v = _polish(spec, cands, best, offsets, seed, left, stats)
@@ -286,6 +298,9 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         # The figures a builder wants (swing, THD, clip limits) for the designs reported.
         designs = sorted(verify(spec, cands, [d.choice for d in designs], large_signal=True), key=rank_key)
     notes = []
+    if status == "unknown":
+        notes.append("time limit reached before any design passed every target; nothing is proved either way"
+                     " (try a longer --time-limit)")
     if status == "feasible":
         notes.append("time limit reached: the designs are the best verified so far")
     elif status == "optimal":
@@ -303,11 +318,16 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     return res
 
 
+def _needs_large(spec) -> bool:
+    return spec.targets.required_swing() is not None or any(i.max_level is not None for i in spec.inputs)
+
+
 def _polish(spec, cands, best, offsets, seed, left, stats) -> Verified | None:
     sm = _model(spec, cands, [], best - TIE, offsets)
     parts, lines, bought, tie = sm.simplicity()
     sm.m.minimize(parts * 10**4 + lines * 10**2 + bought)
-    solver = _solver(seed, max(left() - 0.3, 0.2), left())
+    t = max(left() * 0.5, 0.2)
+    solver = _solver(seed, t, t)
     st = solver.solve(sm.m)
     stats["solves"] += 1
     if st not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
