@@ -396,6 +396,34 @@ def test_report_is_deterministic(written, spec):
     _check_report(a)
 
 
+def test_documents_are_the_same_bytes_every_time(written, spec, tmp_path):
+    out = OutputDir(tmp_path)
+    documents.write_documents(out, spec, written["result"], written["rated"])
+    names = sorted(p.name for p in written["dir"].iterdir() if not p.name.startswith("."))
+    assert names == sorted(p.name for p in tmp_path.iterdir() if not p.name.startswith("."))
+    for name in names:
+        assert (tmp_path / name).read_bytes() == (written["dir"] / name).read_bytes(), name
+
+
+def test_missing_figure_modules_leave_a_note(written, spec, monkeypatch):
+    import sys
+
+    import optimizer.outputs as pkg
+
+    for name in ("plots", "schematic"):
+        monkeypatch.setitem(sys.modules, f"optimizer.outputs.{name}", None)  # importing it now fails
+        monkeypatch.delattr(pkg, name, raising=False)
+    figures = documents.render_figures(spec, written["v"], None)
+    assert set(figures) == {"missing"}
+    assert {"schematic", "frequency", "loadline", "headroom", "montecarlo"} <= set(figures["missing"])
+    text = report_html(spec, written["result"], written["rated"], figures)
+    _check_report(text)
+    assert "data:image/png" not in text and "<svg" not in text
+    assert "Schematic: not drawn (the schematic module is not available" in text
+    for title in ("Frequency response", "Load line", "Headroom against supply", "Monte Carlo spread"):
+        assert f"{title}: not drawn (the plot module is not available" in text
+
+
 def test_report_renders_in_a_headless_browser(written, tmp_path):
     exe = Path("/usr/bin/chromium")
     if not exe.exists():

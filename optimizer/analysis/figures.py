@@ -18,8 +18,9 @@ __all__ = ["Midband", "cutoffs", "midband", "noise"]
 
 F_MID = 1000.0
 _INV_SQRT2 = 1 / np.sqrt(2.0)
-LOW_GRID = np.logspace(-2, 3, 41)  # 0.01 Hz .. 1 kHz
-HIGH_GRID = np.logspace(3, 9, 49)  # 1 kHz .. 1 GHz
+# Coarse grids bracket each corner (3 points a decade); bisection in log frequency refines it.
+LOW_GRID = np.logspace(-2, 3, 16)  # 0.01 Hz .. 1 kHz
+HIGH_GRID = np.logspace(3, 9, 19)  # 1 kHz .. 1 GHz
 NOISE_BAND = (20.0, 20e3)
 
 
@@ -64,7 +65,7 @@ def _gains(net: Network, op: OperatingPoint, small, freqs) -> np.ndarray:
     return np.abs(out[: net.circuit.n_inputs])
 
 
-def cutoffs(net: Network, op: OperatingPoint, small=None, ref=None, steps: int = 24):
+def cutoffs(net: Network, op: OperatingPoint, small=None, ref=None, steps: int = 26):
     """The −3 dB corners of the whole response of each input (every capacitor at once).
 
     The reference is the gain at 1 kHz. The low corner is the highest frequency below 1 kHz

@@ -282,12 +282,14 @@ def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
         # Next amplitude: grow until bracketed, then secant in log-log (bisection fallback).
         grow = np.isinf(hi)
         step_up = amp * np.clip(np.exp(-val), 1.2, 4.0)
-        la, lb = np.log(np.maximum(lo, 1e-300)), np.log(np.where(np.isinf(hi), 1.0, hi))
-        sec = np.where(
-            np.isfinite(hi_val) & np.isfinite(lo_val) & (lo > 0),
-            la - lo_val * (lb - la) / np.where(hi_val - lo_val == 0, 1.0, hi_val - lo_val),
-            0.5 * (la + lb),
-        )
+        with np.errstate(invalid="ignore", divide="ignore"):
+            la, lb = np.log(np.maximum(lo, 1e-300)), np.log(np.where(np.isinf(hi), 1.0, hi))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sec = np.where(
+                np.isfinite(hi_val) & np.isfinite(lo_val) & (lo > 0),
+                la - lo_val * (lb - la) / np.where(hi_val - lo_val == 0, 1.0, hi_val - lo_val),
+                0.5 * (la + lb),
+            )
         sec = np.clip(sec, la + 0.05 * (lb - la), lb - 0.05 * (lb - la))
         nxt = np.where(grow, step_up, np.exp(sec))
         amp = np.where(done, amp, nxt)

@@ -176,7 +176,7 @@ def _transistor_row(v, rating: dict, stock) -> dict:
         rating_text = ""
     source, price = "buy", None
     if stock is not None:
-        for i, s in enumerate(stock.items):
+        for s in stock.items:
             if s.kind == "transistor" and str(s.value) == d.transistor:
                 source, price = "stock", s.price
                 notes.append(f"stock line {s.line}: {s.quantity} in the drawer" + (f", {s.note}" if s.note else ""))

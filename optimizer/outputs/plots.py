@@ -199,7 +199,7 @@ def frequency_plot(an) -> bytes:
     with _style():
         fig, (ax,) = _figure()
         ax.fill_between(f, data["corner_min"][0], data["corner_max"][0], color=BAND, linewidth=0,
-                        label=f"{data['labels'][0]}, range over the corners")
+                        label=f"{data['labels'][0]}, corner range")
         for k in range(n):
             ax.plot(f, g[k], linewidth=1.6, label=data["labels"][k], **_series_style(k))
         marked = False
@@ -224,8 +224,13 @@ def frequency_plot(an) -> bytes:
         ax.set_ylim(max(low, mid - 30.0) - 2.0, top + 3.0)
         ax.set_xlabel("frequency, Hz")
         ax.set_ylabel("gain from source to load, dB")
-        ax.set_title("Frequency response (nominal; band: input 1 over beta, supply and temperature corners)")
-        ax.legend(loc="lower center", fontsize=7, ncol=1 if n <= 3 else (3 if n <= 9 else 4))
+        fig.suptitle("Frequency response at nominal conditions (band: input 1 over the beta, supply and "
+                     "temperature corners)", fontsize=9, color=INK)
+        if n <= 3:
+            ax.legend(loc="best", fontsize=7)
+        else:
+            fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", fontsize=6.5,
+                       ncol=min(n + 2, 6))
         return _png(fig)
 
 

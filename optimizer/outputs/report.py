@@ -208,17 +208,20 @@ def _bringup_table(v) -> str:
 def _mc_table(mc: dict) -> str:
     y = mc.get("yield") or {}
     rows = [(k, x) for k, x in sorted(y.items()) if k != "large_signal_samples"]
-    if not rows:
-        return ""
     n = mc.get("samples", 0)
-    m = y.get("large_signal_samples")
-    out = [f"<p>{_e(n)} random builds (seed {_e(mc.get('seed'))}); each counts as meeting a target when it does so "
-           f"at every end of the supply and temperature ranges"
-           + (f"; headroom over the first {_e(m)} builds" if m else "") + ".</p>",
-           "<table><tr><th>target</th><th>builds that meet it</th></tr>"]
-    for k, x in rows:
-        out.append(f'<tr><td>{_e(k)}</td><td class="num">{_e(f"{100 * x:.1f} %")}</td></tr>')
-    out.append("</table>")
+    sw = mc.get("swing") or {}
+    intro = f"{_e(n)} random builds (seed {_e(mc.get('seed'))})"
+    if sw.get("samples"):
+        intro += (f"; the swing (large-signal) analysis covers the first {_e(sw['samples'])} of them, "
+                  f"at the lowest supply ({_e(format_si(sw.get('supply', 0.0), 'V'))})")
+    out = [f"<p>{intro}.</p>"]
+    if rows:
+        out.append("<p>A build counts as meeting a target when it does so at every end of the supply and "
+                   "temperature ranges.</p>")
+        out.append("<table><tr><th>target</th><th>builds that meet it</th></tr>")
+        for k, x in rows:
+            out.append(f'<tr><td>{_e(k)}</td><td class="num">{_e(f"{100 * x:.1f} %")}</td></tr>')
+        out.append("</table>")
     return "\n".join(out)
 
 

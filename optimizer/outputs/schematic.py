@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import io
 
-__all__ = ["schematic_drawing", "schematic_png", "schematic_svg", "polarised_caps"]
+__all__ = ["polarised_caps", "render_figure", "schematic_drawing", "schematic_layout", "schematic_png", "schematic_svg"]
 
 #: Length of a vertical or horizontal part (drawing units), and spacing constants.
 L = 2.5
@@ -78,6 +78,7 @@ class _Sheet:
         self.d = schemdraw.Drawing(show=False)
         self.d.config(fontsize=FONT, font="DejaVu Sans", color=LINE_INK, lw=1.4, unit=L, margin=MARGIN)
         self.transistor = None
+        self.plus: dict[str, str] = {}  # capacitor → the node its + mark is drawn on
 
     def add(self, e):
         return self.d.add(e)
@@ -103,8 +104,11 @@ class _Sheet:
         n0, n1 = el.nodes
         p0, p1 = points[n0], points[n1]
         polar = _is_polarised(el)
-        if polar and volts.get(el.ref, 0.0) < 0:
-            p0, p1 = p1, p0  # the start of schemdraw's capacitor carries the + mark
+        if polar:
+            plus = n0 if volts.get(el.ref, 0.0) >= 0 else n1
+            if plus == n1:
+                p0, p1 = p1, p0  # the start of schemdraw's capacitor carries the + mark
+            self.plus[el.ref] = plus
         return self.add(self.elm.Capacitor(polar=polar).endpoints(p0, p1))
 
     def ground(self, p):
@@ -113,8 +117,15 @@ class _Sheet:
 
 def schematic_drawing(an_or_circuit, design=None):
     """The schemdraw Drawing of the stage (for tests and further rendering)."""
+    return schematic_layout(an_or_circuit, design)[0]
+
+
+def schematic_layout(an_or_circuit, design=None):
+    """(Drawing, facts) where facts has ``plus`` (capacitor → node of its + mark) and
+    ``transistor`` (the schemdraw element drawn for Q1)."""
     circuit, design = _resolve(an_or_circuit, design)
-    return _draw(circuit, design)[0]
+    d, sheet = _draw(circuit, design)
+    return d, {"plus": dict(sheet.plus), "transistor": sheet.transistor}
 
 
 def _draw(circuit, design):
@@ -147,7 +158,7 @@ def _draw(circuit, design):
         upper, lower = [rc], emitter_parts
         upper_node, lower_node = c_node, e_node
 
-    XD, XBUS, XQ = 0.0, -1.6, 2.4
+    XD, XBUS, XQ = 0.0, -3.0, 2.4
     dq = 0.7516666666666666, 0.6966666666666667  # schemdraw's BJT terminal offsets from the base
     XC = XQ + dq[0]
     XCAP = XC + 2.9
@@ -183,16 +194,19 @@ def _draw(circuit, design):
         if node != end_node:
             raise ValueError(f"the column from {start_node} does not reach {end_node}")
         s.wire((x, y), (x, y_end))
-        return pts, (x, y)
+        return pts
 
     # Upper part of the column: supply → ... → upper terminal.
-    up_pts, up_join = stack(upper, rail_top, XC, y_top, y_up, upper_node) if upper else ({}, (XC, y_top))
-    if not upper:
+    up_pts: dict = {}
+    if upper:
+        up_pts = stack(upper, rail_top, XC, y_top, y_up, upper_node)
+    else:
         s.wire((XC, y_top), (XC, y_up))
+    # Lower part: lower terminal → ... → ground.
     lo_pts: dict = {}
     if lower:
         s.wire((XC, y_low), (XC, y_low - 0.5))
-        lo_pts, lo_join = stack(lower, lower_node, XC, y_low - 0.5, 0.0, rail_bot)
+        lo_pts = stack(lower, lower_node, XC, y_low - 0.5, 0.0, rail_bot)
     else:
         s.wire((XC, y_low), (XC, 0.0))
     s.wire((XD, y_top), (XC, y_top))
@@ -244,7 +258,7 @@ def _draw(circuit, design):
     # Inputs, stacked on the left.
     n = circuit.n_inputs
     has_pot = any(circuit.by_role("level_pot", k) for k in range(1, n + 1))
-    h = 5.2 if has_pot else 2.4
+    h = 4.8 if has_pot else 2.4
     rows = [yb + (n - 1) * h / 2 - (k - 1) * h for k in range(1, n + 1)]
     for k, ys in enumerate(rows, start=1):
         series, cin, pot = one("input_series", k), one("input_cap", k), one("level_pot", k)
@@ -276,38 +290,49 @@ def _draw(circuit, design):
     ys_all = rows + [yb]
     s.wire((XBUS, max(ys_all)), (XBUS, min(ys_all)))
     s.wire((XBUS, yb), (XD, yb))
+    if n > 1:
+        s.dot((XBUS, yb))
     return s.d, s
 
 
-def _render(drawing, fmt: str) -> bytes:
-    import matplotlib
+_RC = {"svg.hashsalt": "stagefit-schematic", "svg.fonttype": "none", "font.family": "DejaVu Sans"}
+
+
+def render_figure(drawing):
+    """A matplotlib Figure (own Agg canvas) with the drawing on it, sized to fit every label."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     bb = drawing.get_bbox()
     x0, x1 = bb.xmin - MARGIN, bb.xmax + MARGIN
     y0, y1 = bb.ymin - MARGIN, bb.ymax + MARGIN
-    rc = {"svg.hashsalt": "stagefit-schematic", "svg.fonttype": "none", "font.family": "DejaVu Sans"}
-    with matplotlib.rc_context(rc):
-        fig = Figure(figsize=((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT), dpi=PNG_DPI)
-        FigureCanvasAgg(fig)
-        ax = fig.add_axes((0, 0, 1, 1))
-        ax.set_axis_off()
-        drawing.draw(show=False, canvas=ax)
-        ax.set_xlim(x0, x1)
-        ax.set_ylim(y0, y1)
-        # schemdraw only estimates text widths: measure the labels and widen the sheet so
-        # none is cut off. The scale (inches per unit) stays, so one pass is enough.
-        renderer = fig.canvas.get_renderer()
-        inv = ax.transData.inverted()
-        for t in ax.texts:
-            e = t.get_window_extent(renderer)
-            (ax_, ay_), (bx_, by_) = inv.transform([[e.x0, e.y0], [e.x1, e.y1]])
-            x0, x1 = min(x0, ax_ - 0.2), max(x1, bx_ + 0.2)
-            y0, y1 = min(y0, ay_ - 0.2), max(y1, by_ + 0.2)
-        fig.set_size_inches((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT)
-        ax.set_xlim(x0, x1)
-        ax.set_ylim(y0, y1)
+    fig = Figure(figsize=((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT), dpi=PNG_DPI)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes((0, 0, 1, 1))
+    ax.set_axis_off()
+    drawing.draw(show=False, canvas=ax)
+    ax.set_xlim(x0, x1)
+    ax.set_ylim(y0, y1)
+    # schemdraw only estimates text widths: measure the labels and widen the sheet so none
+    # is cut off. The scale (inches per unit) stays the same, so one pass is enough.
+    renderer = fig.canvas.get_renderer()
+    inv = ax.transData.inverted()
+    for t in ax.texts:
+        e = t.get_window_extent(renderer)
+        (ax_, ay_), (bx_, by_) = inv.transform([[e.x0, e.y0], [e.x1, e.y1]])
+        x0, x1 = min(x0, ax_ - 0.2), max(x1, bx_ + 0.2)
+        y0, y1 = min(y0, ay_ - 0.2), max(y1, by_ + 0.2)
+    fig.set_size_inches((x1 - x0) * INCHES_PER_UNIT, (y1 - y0) * INCHES_PER_UNIT)
+    ax.set_xlim(x0, x1)
+    ax.set_ylim(y0, y1)
+    return fig
+
+
+def _render(drawing, fmt: str) -> bytes:
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = render_figure(drawing)
         buf = io.BytesIO()
         if fmt == "svg":
             fig.savefig(buf, format="svg", metadata={"Date": None}, facecolor="white")

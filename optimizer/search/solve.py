@@ -294,9 +294,17 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
             (verified if v.margin >= 0 else failed).append(v)
     good = _distinct(sorted(_passing(verified), key=rank_key))
     designs = good[:top]
+    if designs and cands.stock is not None:
+        # Stock first: a bought part whose value is in the drawer (with no wider tolerance)
+        # is taken from the drawer instead, as far as the quantities go.
+        swapped = [_from_stock(cands, d.choice) for d in designs]
+        if any(ch != d.choice for ch, d in zip(swapped, designs)):
+            again = verify(spec, cands, swapped, large_signal=True)
+            designs = [a if a.margin >= 0 else d for a, d in zip(again, designs)]
     if designs and designs[0].analysis.large == {}:
         # The figures a builder wants (swing, THD, clip limits) for the designs reported.
-        designs = sorted(verify(spec, cands, [d.choice for d in designs], large_signal=True), key=rank_key)
+        designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
+    designs = sorted(designs, key=rank_key)
     notes = []
     if status == "unknown":
         notes.append("time limit reached before any design passed every target; nothing is proved either way"
@@ -316,6 +324,27 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
 
         res.conflicts = explain(spec, cands, seed, deadline + 30.0)
     return res
+
+
+def _from_stock(cands: Candidates, ch: Choice) -> Choice:
+    used: dict[int, int] = {}
+    pick = ch.as_dict()
+    for key, i in pick.items():
+        it = cands.slot(*key).items[i]
+        if it.stock_line is not None:
+            used[it.stock_line] = used.get(it.stock_line, 0) + 1
+    for key, i in sorted(pick.items(), key=lambda kv: (kv[0][0], kv[0][1] or 0)):
+        items = cands.slot(*key).items
+        it = items[i]
+        if it.source != "series":
+            continue
+        for j, alt in enumerate(items):
+            if (alt.source == "stock" and alt.value == it.value and alt.tolerance <= it.tolerance
+                    and used.get(alt.stock_line, 0) < cands.stock_qty[alt.stock_line]):
+                pick[key] = j
+                used[alt.stock_line] = used.get(alt.stock_line, 0) + 1
+                break
+    return Choice.of(pick, ch.transistor)
 
 
 def _needs_large(spec) -> bool:
