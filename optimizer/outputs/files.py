@@ -11,6 +11,12 @@ from ..errors import FileProblems, Problem, display_path
 __all__ = ["OutputDir"]
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 class OutputDir:
     """A folder of outputs.
 
@@ -43,6 +49,7 @@ class OutputDir:
         try:
             with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as fh:
                 fh.write(data)
+            os.chmod(tmp, 0o666 & ~_umask())
             os.replace(tmp, target)
         except BaseException:
             if os.path.exists(tmp):
