@@ -43,7 +43,7 @@ def monte_carlo(design, circuit, cond: Conditions, n: int, seed: int = 1, spec=N
     want_corners = spec is None or spec.targets.low_cutoff_max is not None or spec.targets.high_cutoff_min is not None
     for s, t in conds:
         b = Batch(n, np.full(n, s), np.full(n, t), dict(values), {}, dict(beta))
-        vals, _ = small_figures(net, b, corners=want_corners, steps=10)
+        vals, _ = small_figures(net, b, corners=want_corners, steps=5)
         per_cond.append(vals)
     ninp = circuit.n_inputs
     keys = [k for k in per_cond[0] if not k.startswith(("power:", "capv:", "pq:"))]
