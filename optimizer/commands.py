@@ -246,7 +246,9 @@ def cmd_design(args) -> int:
         for n in result.notes:
             _say(args, "  " + n)
         if writer is not None and writer.written:
-            _say(args, f"\nwrote {len(writer.written)} files to {out_dir}/ (report.html, bom.csv, design-N.yaml, design-N.cir ...)")
+            names = sorted(Path(w).name for w in writer.written)
+            shown = ", ".join(names[:6]) + (", …" if len(names) > 6 else "")
+            _say(args, f"\nwrote {len(names)} file{'s' if len(names) != 1 else ''} to {out_dir}/ ({shown})")
     return EXIT_OK if result.designs else EXIT_UNMET
 
 

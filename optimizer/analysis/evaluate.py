@@ -27,7 +27,8 @@ from . import figures as fig
 from .large_signal import clip_limits, swing_at_thd, thd_at_level
 from .network import Batch, Network
 
-__all__ = ["Analysis", "Conditions", "analyse", "analyse_many", "conditions_of", "ratings", "SMALL_FIGURES"]
+__all__ = ["Analysis", "Conditions", "analyse", "analyse_many", "conditions_of", "large_roles", "ratings", "SMALL_FIGURES",
+           "TRANSISTOR_FIGURES"]
 
 #: Direction in which each figure gets worse ("min": smaller is worse; "max": larger is worse).
 ADVERSE = {
@@ -45,7 +46,23 @@ ADVERSE = {
 }
 
 SMALL_FIGURES = ("vb", "ve", "vc", "ic", "ib", "vce", "supply_current", "output_impedance")
+#: The operating-point figures reported for every transistor, keyed ``name:ref`` (``vce:Q2``).
+TRANSISTOR_FIGURES = ("vb", "ve", "vc", "ic", "ib", "vce")
+#: The stage's own parts of divider-ce (those that set the output's limits).
 LARGE_ROLES = ("bias_top", "bias_bottom", "collector", "emitter", "emitter_bypassed")
+
+
+def large_roles(topology: str) -> tuple[str, ...]:
+    """The roles whose tolerances the large-signal corners move: a topology's ``LARGE_ROLES``
+    when it names them, else every resistor role that is not per input (for divider-ce
+    exactly :data:`LARGE_ROLES`)."""
+    from ..circuit.topologies import get_topology
+
+    topo = get_topology(topology)
+    named = getattr(topo, "LARGE_ROLES", None)
+    if named is not None:
+        return tuple(named)
+    return tuple(ro.name for ro in topo.ROLES if ro.kind == "R" and not ro.per_input)
 
 
 @dataclass(frozen=True)
@@ -101,6 +118,8 @@ def _batch_at(circuits: list[Circuit], points: list[tuple[int, dict, dict]]) -> 
 def small_figures(net: Network, batch: Batch, corners: bool = True, steps: int = 10) -> tuple[dict[str, np.ndarray], object]:
     """Every small-signal figure of a batch, as (B,) arrays keyed by name.
 
+    The operating point of the first transistor is keyed ``vb``, ``ve``, ``vc``, ``ic``,
+    ``ib``, ``vce``; that of every transistor (the first included) ``vb:Q1`` … ``vce:Q2``.
     Per-input figures are keyed ``gain_db:1``, ``input_impedance:1``, ``low_cutoff:1``,
     ``high_cutoff:1``, ``crosstalk_db:1`` (the largest leak of input 1 into another jack).
     ``corners=False`` leaves out the −3 dB corners (the costly part); ``steps`` sets how
@@ -114,18 +133,17 @@ def small_figures(net: Network, batch: Batch, corners: bool = True, steps: int =
     else:
         lo = hi = np.full((net.circuit.n_inputs, batch.size), np.nan)
     c = net.circuit
-    q = c.transistors[0].ref
-    e_node = c.element(q).nodes[2]
-    out = {
-        "vb": op.v[c.element(q).nodes[1]],
-        "ve": op.v[e_node],
-        "vc": op.v[c.element(q).nodes[0]],
-        "ic": op.ic[q],
-        "ib": op.ib[q],
-        "supply_current": op.supply_current,
-        "output_impedance": np.abs(mb.zout),
-    }
-    out["vce"] = (out["vc"] - out["ve"]) * c.element(q).model.sign
+    out = {}
+    for i, qe in enumerate(c.transistors):
+        q = qe.ref
+        nc, nb, ne = qe.nodes
+        opq = {"vb": op.v[nb], "ve": op.v[ne], "vc": op.v[nc], "ic": op.ic[q], "ib": op.ib[q],
+               "vce": (op.v[nc] - op.v[ne]) * qe.model.sign}
+        if i == 0:  # the first transistor's keys without a designator, as scripts know them
+            out.update(opq)
+        out.update({f"{k}:{q}": v for k, v in opq.items()})
+    out["supply_current"] = op.supply_current
+    out["output_impedance"] = np.abs(mb.zout)
     for k in range(c.n_inputs):
         out[f"gain_db:{k + 1}"] = 20 * np.log10(np.maximum(np.abs(mb.gain[k]), 1e-30))
         out[f"input_impedance:{k + 1}"] = np.abs(mb.zin[k])
@@ -152,7 +170,7 @@ _CORNER_FIGURES = ("low_cutoff", "high_cutoff")
 
 def _direction(name: str) -> list[str]:
     base = name.split(":")[0]
-    if base in ("vb", "ve", "vc", "ic", "ib", "vce", "gain_db", "supply_current") or base.startswith("capv"):
+    if base in TRANSISTOR_FIGURES or base in ("gain_db", "supply_current") or base.startswith("capv"):
         return ["min", "max"]
     if base in ADVERSE:
         return [ADVERSE[base]]
@@ -305,7 +323,8 @@ def analyse_many(designs: list, circuits: list[Circuit] | None = None, large_sig
 def _large(ans: list[Analysis], net: Network, circuits, conds, nom, glob, level, thd_limit, worst_case):
     """Swing, THD and clip limits for every analysis of the batch (harmonic balance)."""
     n = len(ans)
-    core = [[e.ref for e in c.parts if e.role in LARGE_ROLES and e.ref in cond.tolerance] if worst_case else []
+    roles = large_roles(circuits[0].topology)
+    core = [[e.ref for e in c.parts if e.role in roles and e.ref in cond.tolerance] if worst_case else []
             for c, cond in zip(circuits, conds)]
     limits = [thd_limit if thd_limit is not None else an.design.thd_limit for an in ans]
     points, layout = [], []
@@ -378,7 +397,11 @@ def _large(ans: list[Analysis], net: Network, circuits, conds, nom, glob, level,
 
 
 def ratings(an: Analysis) -> dict:
-    """Resistor power, capacitor voltage and polarity, transistor dissipation."""
+    """Resistor power, capacitor voltage and polarity, transistor dissipation.
+
+    ``transistor`` is the first transistor's dissipation (``ref``, ``dissipation`` W at the
+    worst corner, ``ambient_max`` K); ``transistors`` the same for every transistor.
+    """
     c = an.circuit
     vmax = an.conditions.supply[2]
     res = []
@@ -405,9 +428,9 @@ def ratings(an: Analysis) -> dict:
             caps.append({"ref": e.ref, "dc_min": lo, "dc_max": hi, "plus_node": None if plus is None else e.nodes[plus],
                          "minus_node": None if plus is None else e.nodes[1 - plus],
                          "rating": voltage_rating_for(need), "needs_non_polar": plus is None})
-    q = c.transistors[0]
     tmax = an.conditions.ambient[2]
-    return {"resistors": res, "capacitors": caps,
-            "transistor": {"ref": q.ref, "dissipation": an.high.get(f"pq:{q.ref}", 0.0), "ambient_max": tmax}}
+    qs = [{"ref": q.ref, "dissipation": an.high.get(f"pq:{q.ref}", 0.0), "ambient_max": tmax} for q in c.transistors]
+    # ``transistor`` is the first one (as before); ``transistors`` lists every one.
+    return {"resistors": res, "capacitors": caps, "transistor": qs[0], "transistors": qs}
 
 

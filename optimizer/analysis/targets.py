@@ -53,21 +53,44 @@ ACTIVE_VCE = 0.5
 ACTIVE_IC = 1e-6
 
 
+def _active_region(an) -> TargetResult:
+    """The implicit target: every transistor in its active region at every corner."""
+    refs = [q.ref for q in an.circuit.transistors]
+    several = len(refs) > 1
+    worst = None
+    for q in refs:
+        # The first transistor's figures also exist without a designator (older analyses).
+        key = f"vce:{q}" if f"vce:{q}" in an.low else "vce"
+        ikey = f"ic:{q}" if f"ic:{q}" in an.low else "ic"
+        vce_lo, ic_lo = an.low[key], an.low[ikey]
+        m_vce = _ln(vce_lo, ACTIVE_VCE) if vce_lo > 0 else -math.inf
+        m_ic = _ln(ic_lo, ACTIVE_IC) if ic_lo > 0 else -math.inf
+        m = min(m_vce, m_ic)
+        if worst is None or m < worst[0]:
+            corner = an.corner_of.get(f"{key}:min", "")  # where the worst VCE (the value shown) was
+            worst = (m, q, an.nominal[key], vce_lo, corner)
+    m, q, nom, vce_lo, corner = worst
+    limit = f"VCE ≥ {ACTIVE_VCE:g} V, IC ≥ 1 µA"
+    if several:
+        limit += f" ({', '.join(refs)})"
+        corner = f"{q}: {corner}" if corner else q
+    return TargetResult("active region", limit, nom, vce_lo, "V", m, corner)
+
+
 def judge(an, spec) -> list[TargetResult]:
     """Every target of the spec against an :class:`~optimizer.analysis.evaluate.Analysis`.
 
     Besides the spec's own targets there is always one implicit target, ``active region``:
-    at every corner VCE ≥ 0.5 V and I_C ≥ 1 µA (a stage that saturates or turns off at a
-    corner is not an amplifier there).
+    at every corner every transistor has VCE ≥ 0.5 V and I_C ≥ 1 µA (a stage that saturates
+    or turns off at a corner is not an amplifier there). With several transistors it is
+    one target whose margin is the smallest of theirs; the limit lists the transistors, and
+    the values and the corner (prefixed ``Q2: `` …) are those of the one with that margin.
     """
     t = spec.targets
     n = an.circuit.n_inputs
     out: list[TargetResult] = []
     c = an.corner_of
-    vce_lo, ic_lo = an.low["vce"], an.low["ic"]
-    m_act = min(_ln(vce_lo, ACTIVE_VCE) if vce_lo > 0 else -math.inf, _ln(ic_lo, ACTIVE_IC) if ic_lo > 0 else -math.inf)
-    out.append(TargetResult("active region", f"VCE ≥ {ACTIVE_VCE:g} V, IC ≥ 1 µA", an.nominal["vce"], vce_lo, "V", m_act,
-                            c.get("vce:min", "")))
+    out.append(_active_region(an))
 
     def worst_over(base: str, d: str):
         keys = [f"{base}:{k}" for k in range(1, n + 1)]

@@ -6,7 +6,11 @@ not new analysis code.
 
 Node names: ground is ``0``; the supply rail is ``vcc``; source *k* (1-based) has its EMF
 node ``in{k}`` (an ideal voltage source ``VIN{k}``) and its jack ``src{k}`` after the source
-resistance ``RS{k}``; the load hangs on ``out``. The rest are the topology's own.
+resistance ``RS{k}``; the load hangs on ``out``. The rest are the topology's own: the
+first transistor's terminals are ``b``, ``c``, ``e`` (``e2`` between its unbypassed and
+bypassed emitter resistors), each input's coupling capacitor ends on ``a{k}`` (the level
+pot's wiper is ``w{k}``), and a second transistor's terminals are ``b_q2``, ``c_q2``, ``e_q2``
+(``e2_q2``). A terminal may sit on a rail (a follower's collector on ``vcc``).
 """
 
 from __future__ import annotations

@@ -7,7 +7,10 @@ resistance ``RS1`` … into the jack node ``src1`` …, and the load on ``out``.
 end), at its rotation. Values are written as plain numbers (``1e-05``, never ``10u`` or
 ``10m``, which SPICE would read as milli). The transistor's ``.model`` card carries
 ``TNOM``; ``.temp`` sets the simulation temperature. There is no analysis or control block
-unless asked for (``analyses=``).
+unless asked for (``analyses=``). A comment line per transistor names its collector, base and
+emitter nodes (topologies with several transistors name the later ones' nodes ``b_q2`` …).
+Every transistor gets its own ``.model`` card (``Q<type>_<designator>``), so a corner or a
+substitution can give each its own parameters.
 """
 
 from __future__ import annotations
@@ -52,6 +55,9 @@ def to_spice(
     """
     lines = [f"* {title or 'stagefit netlist: ' + circuit.topology}"]
     lines.append("* nodes: vcc supply, 0 ground, inK source EMF, srcK input jack, out load")
+    for q in circuit.transistors:
+        c, b, e = q.nodes
+        lines.append(f"* {q.ref}: collector {c}, base {b}, emitter {e}")
     models: dict[str, str] = {}
     for e in circuit.elements:
         n = e.nodes

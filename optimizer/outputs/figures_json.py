@@ -6,6 +6,9 @@ JSON keys (all SI: V, A, Ω, Hz, dB as stated):
                      ``cjc``, ``cje``, ``tf`` (plus ``xtb``, ``tnom``, ``beta_min``, ``beta_max``…)
 ``conditions``       supply (V), ambient (°C) and beta ranges the corners span
 ``operating_point``  ``vb``, ``ve``, ``vc``, ``ic``, ``ib``, ``supply_current``, ``vce`` at nominal
+                     (of the first transistor, Q1)
+``transistors``      every transistor's operating point by designator: ``{"Q1": {"vb", "ve", "vc",
+                     "ic", "ib", "vce"}, "Q2": …}`` at nominal (``worst.transistors``: min/max)
 ``inputs``           per input: ``gain_db`` (source EMF to load, 1 kHz), ``input_impedance``
                      (|Z| at the jack, 1 kHz), ``low_cutoff``, ``high_cutoff``, ``crosstalk_db``
 ``low_cutoff``       highest low −3 dB corner over the inputs; ``high_cutoff`` the lowest high one
@@ -20,6 +23,7 @@ JSON keys (all SI: V, A, Ω, Hz, dB as stated):
 ``range``            ``{"min", "max"}`` of every figure over the corners
 ``corners``          which corner gave each worst value
 ``ratings``          resistor power, capacitor DC voltage / polarity / rating, transistor dissipation
+                     (``transistor``: Q1; ``transistors``: every one)
 ``targets``          with ``--spec``: one verdict per target (limit, worst, margin, pass)
 """
 
@@ -32,6 +36,12 @@ from ..spec.quantities import format_code, format_si
 __all__ = ["analysis_json", "analysis_text"]
 
 OP_KEYS = ("vb", "ve", "vc", "ic", "ib", "supply_current", "vce")
+Q_KEYS = ("vb", "ve", "vc", "ic", "ib", "vce")
+
+
+def _refs(an) -> list[str]:
+    """The transistors whose per-designator figures the analysis holds."""
+    return [q.ref for q in an.circuit.transistors if f"vce:{q.ref}" in an.nominal]
 
 
 def _f(x):
@@ -67,6 +77,7 @@ def analysis_json(an, ratings: dict | None = None, targets=None, mc=None) -> dic
             "beta": {k: {"nominal": v[0], "min": v[1], "max": v[2]} for k, v in cond.beta.items()},
         },
         "operating_point": {k: _f(an.nominal[k]) for k in OP_KEYS},
+        "transistors": {q: {k: _f(an.nominal[f"{k}:{q}"]) for k in Q_KEYS} for q in _refs(an)},
         "inputs": [],
     }
     names = d.input_names or tuple(str(k) for k in range(1, n + 1))
@@ -98,6 +109,8 @@ def analysis_json(an, ratings: dict | None = None, targets=None, mc=None) -> dic
         out["noise"] = {"output_rms": _f(an.noise["output_rms"])}
     worst: dict = {
         "operating_point": {k: {"min": _f(an.low[k]), "max": _f(an.high[k])} for k in OP_KEYS},
+        "transistors": {q: {k: {"min": _f(an.low[f"{k}:{q}"]), "max": _f(an.high[f"{k}:{q}"])} for k in Q_KEYS}
+                        for q in _refs(an)},
         "inputs": [
             {
                 "gain_db": _f(an.low[f"gain_db:{k}"]),
@@ -157,8 +170,13 @@ def analysis_text(an, ratings: dict | None = None, targets=None) -> str:
     L.append("")
     L.append("                          nominal        worst")
     row = lambda label, nom, worst: L.append(f"  {label:<22}  {nom:>12}  {worst:>12}")  # noqa: E731
-    for key, label, unit in (("vb", "base", "V"), ("ve", "emitter", "V"), ("vc", "collector", "V"),
-                             ("ic", "collector current", "A"), ("supply_current", "supply current", "A")):
+    refs = _refs(an)
+    rows = [("vb", "base", "V"), ("ve", "emitter", "V"), ("vc", "collector", "V"), ("ic", "collector current", "A")]
+    if len(refs) > 1:  # several transistors: each one's operating point, by designator
+        rows = [(f"{key}:{q}", f"{q} {label}", unit) for q in refs
+                for key, label, unit in (("vb", "base", "V"), ("ve", "emitter", "V"), ("vc", "collector", "V"),
+                                         ("vce", "VCE", "V"), ("ic", "collector current", "A"))]
+    for key, label, unit in [*rows, ("supply_current", "supply current", "A")]:
         row(label, format_si(an.nominal[key], unit), f"{format_si(an.low[key], unit)} .. {format_si(an.high[key], unit)}")
     for k in range(1, n + 1):
         name = d.input_names[k - 1] if d.input_names else str(k)
@@ -187,7 +205,11 @@ def analysis_text(an, ratings: dict | None = None, targets=None) -> str:
                                     ", ".join(f"{r['ref']} needs {r['rating']:g} W" for r in hot)))
         for cap in ratings["capacitors"]:
             if cap["plus_node"]:
-                L.append(f"  {cap['ref']}: + to node {cap['plus_node']}, {cap['dc_min']:+.2f}..{cap['dc_max']:+.2f} V DC, "
+                # dc_min/dc_max are across the capacitor's first node to its second; show + to −.
+                lo, hi = cap["dc_min"], cap["dc_max"]
+                if cap["plus_node"] != c.element(cap["ref"]).nodes[0]:
+                    lo, hi = -hi, -lo
+                L.append(f"  {cap['ref']}: + to node {cap['plus_node']}, {lo:+.2f}..{hi:+.2f} V DC, "
                          f"rate ≥ {cap['rating']:g} V")
             else:
                 L.append(f"  {cap['ref']}: DC near 0 or changing sign: use a non-polarised (film or bipolar) part")

@@ -1,9 +1,11 @@
 """The search: propose with CP-SAT, verify with the analysis, cut, repeat.
 
-1. The relaxation (:class:`~optimizer.search.model.StageModel`) is solved with every target
-   at margin ≥ 0. If that is infeasible — confirmed a second time with presolve off, since the
-   solver has known wrong-answer bugs — no design can meet the spec, and the answer names the
-   conflicting targets (:mod:`optimizer.search.explain`).
+1. The relaxation (:class:`~optimizer.search.model.StageModel`) is asked for designs with
+   every target met at margin ≥ 0 (proposals with each target tightened by a learned offset).
+   When the relaxation itself (no offsets) has no design left that was not tried and failed —
+   confirmed a second time with presolve on, since the solver has known wrong-answer bugs —
+   no design can meet the spec, and the answer names the conflicting targets
+   (:mod:`optimizer.search.explain`).
 2. Otherwise the model maximises the common margin (then prefers fewer parts, fewer BOM
    lines, fewer parts to buy). Every design it finds is analysed in full at every corner; the
    analysis' margin decides. Verified designs are cut from the model, and the model is asked
@@ -167,8 +169,14 @@ def search(
         return results[0]
     designs = sorted([d for r in results for d in r.designs], key=rank_key)[:top]
     statuses = [r.status for r in results]
-    status = "optimal" if all(s in ("optimal", "infeasible") for s in statuses) and designs else (
-        "infeasible" if all(s == "infeasible" for s in statuses) else "feasible")
+    if all(s == "infeasible" for s in statuses):
+        status = "infeasible"
+    elif not designs:
+        status = "unknown"
+    elif all(s in ("optimal", "infeasible") for s in statuses):
+        status = "optimal"
+    else:
+        status = "feasible"
     merged = SearchResult(status, designs, "+".join(r.topology for r in results),
                           bound=max((r.bound for r in results if r.bound is not None), default=None),
                           conflicts=[c for r in results for c in r.conflicts],
@@ -181,26 +189,6 @@ def search(
 def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, seed: int, say, start) -> SearchResult:
     stats = {"solves": 0, "verified": 0}
     left = lambda: deadline - time.monotonic()  # noqa: E731
-
-    # 1. Can any design meet every target? (the relaxation at margin 0)
-    sm = _model(spec, cands, [], 0.0)
-    solver = _solver(seed, min(left(), 10.0), left())
-    st = solver.solve(sm.m)
-    stats["solves"] += 1
-    if st == cp_model.INFEASIBLE:
-        say("no design can meet every target; confirming with presolve on")
-        sm2 = _model(spec, cands, [], 0.0)
-        st2 = _solver(seed, min(left(), 20.0), max(left(), 5.0), presolve=True).solve(sm2.m)
-        stats["solves"] += 1
-        if st2 == cp_model.INFEASIBLE:
-            from .explain import explain
-
-            conflicts = explain(spec, cands, seed, deadline)
-            return SearchResult("infeasible", [], cands.topology, bound=0.0, conflicts=conflicts, stats=stats,
-                                candidates=cands, notes=["proved infeasible twice (without and with presolve)"])
-        return SearchResult("feasible", [], cands.topology, notes=[
-            "the solver's two answers disagreed (infeasible without presolve, not with it); nothing is claimed"],
-            stats=stats, candidates=cands)
 
     verified: list[Verified] = []
     failed: list[Verified] = []
@@ -225,7 +213,16 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     reserve = 0.15 * (deadline - time.monotonic()) + (2.0 * top if _needs_large(spec) is False else 0.5 * top)
     polish_at = deadline - 0.2 * (deadline - time.monotonic())
     loop_end = deadline - reserve
-    while time.monotonic() < loop_end and (best is None or time.monotonic() < polish_at):
+    per_design = 0.0  # the longest verification seen, seconds per design
+
+    def final_need() -> float:
+        # Time the end needs: the polish (one solve and one verification) and re-verifying
+        # the reported designs with large-signal figures or stock parts swapped in.
+        n = min(top, len(_passing(verified)))
+        return 1.5 * per_design * (n + 1) + 1.0 if n else 0.0
+
+    while (time.monotonic() < min(loop_end, deadline - final_need())
+           and (best is None or time.monotonic() < polish_at)):
         rounds += 1
         # Phase 1: something better than the best so far. Phase 2 (once the best is proved):
         # something that could still enter the top K, above the K-th best verified.
@@ -237,16 +234,39 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         sm = _model(spec, cands, cuts, floor, offsets, core_cuts)
         if hint is not None:
             sm.hint(hint)
-        budget = max(loop_end - time.monotonic(), 0.1)
+        # The proposal with the most model margin (within the time of one chunk), so the
+        # floor climbs in large steps and proposals sit away from the model's edges; the last
+        # few improving solutions are verified together.
+        sm.m.maximize(sm.u.expr)
+        budget = max(min(loop_end, deadline - final_need()) - time.monotonic(), 0.1)
         solver = _solver(seed, min(budget, chunk), budget)
-        st = solver.solve(sm.m)
+        coll = _Collector(sm, limit=VERIFY_PER_ROUND * 4)
+        st = solver.solve(sm.m, coll)
         stats["solves"] += 1
         relaxed = not any(v > 0.002 for v in offsets.values())
         if st == cp_model.INFEASIBLE:
             if relaxed or _proved_none_above(spec, cands, cuts, floor, seed, left, chunk, core_cuts):
                 if best is None:
-                    bound, status = floor, "infeasible"
-                    break
+                    # No design can meet every target (none not yet tried can, and every one
+                    # tried failed): confirmed a second way (presolve on), since the solver has
+                    # known wrong-answer bugs.
+                    say("no design can meet every target; confirming with presolve on")
+                    sm2 = _model(spec, cands, cuts, 0.0, None, core_cuts)
+                    st2 = _solver(seed, min(max(left(), 5.0), 20.0), max(left(), 5.0), presolve=True).solve(sm2.m)
+                    stats["solves"] += 1
+                    if st2 != cp_model.INFEASIBLE:
+                        why = ("the solver's two answers disagreed (infeasible without presolve, not with it)"
+                               if st2 in (cp_model.OPTIMAL, cp_model.FEASIBLE) else
+                               "time ran out while confirming that no design can meet the spec")
+                        return SearchResult("unknown", [], cands.topology, stats=stats, candidates=cands,
+                                            near_misses=sorted(failed, key=rank_key)[:3],
+                                            notes=[why + "; nothing is claimed"])
+                    from .explain import explain
+
+                    conflicts = explain(spec, cands, seed, deadline)
+                    return SearchResult("infeasible", [], cands.topology, bound=0.0, conflicts=conflicts,
+                                        stats=stats, candidates=cands, near_misses=sorted(failed, key=rank_key)[:3],
+                                        notes=["proved infeasible twice (without and with presolve)"])
                 if not best_proved:
                     best_proved, bound, status = True, floor, "optimal"
                     if top > 1:
@@ -260,36 +280,44 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
                 break
             offsets = {k: v / 2 for k, v in offsets.items()}
             continue
-        pick, tr_i = sm.chosen(solver.boolean_value)
-        ch = Choice.of(pick, tr_i)
-        u = solver.value(sm.u.expr)
-        cuts.append(ch)
-        key = _values_key(cands, ch)
-        if key in seen:
+        proposals = []
+        for u, ch in reversed(coll.found):  # best first
+            cuts.append(ch)
+            key = _values_key(cands, ch)
+            if key in seen or len(proposals) >= VERIFY_PER_ROUND:
+                continue
+            seen.add(key)
+            proposals.append((u, ch))
+        if not proposals:
             continue
-        seen.add(key)
-        v = verify(spec, cands, [ch])[0]
-        (verified if v.margin >= 0 else failed).append(v)
-        stats["verified"] += 1
-        # Missed for the resistors and transistor alone: no capacitor choice can save it.
-        if any(tr.margin < -CAP_INSENSITIVE[tr.name] for tr in v.targets if tr.name in CAP_INSENSITIVE
-               and tr.margin < min(floor, 0.0)):
-            core_cuts.append(ch)
+        t_v = time.monotonic()
+        checked = verify(spec, cands, [ch for _, ch in proposals])
+        per_design = max(per_design, (time.monotonic() - t_v) / len(proposals))
+        for (u, ch), v in zip(proposals, checked):
+            (verified if v.margin >= 0 else failed).append(v)
+            stats["verified"] += 1
+            # Missed for the resistors and transistor alone: no capacitor choice can save it.
+            if any(tr.margin < -CAP_INSENSITIVE[tr.name] for tr in v.targets if tr.name in CAP_INSENSITIVE
+                   and tr.margin < min(floor, 0.0)):
+                core_cuts.append(ch)
+        # How optimistic the model was, from the proposal it liked best.
+        (u, ch), v = proposals[0], checked[0]
         t_m = math.log(u / S)
         for tr in v.targets:
             name = "headroom" if tr.name.startswith("overload") else _MODEL_TARGET.get(tr.name, tr.name)
             # A target that missed the margin asked for: the model was too optimistic about it.
             if name in _MODEL_TARGETS and tr.margin < floor:
                 offsets[name] = min(offsets.get(name, 0.0) + max(0.7 * (t_m - tr.margin), 2 * TIE), 1.0)
+        v = max(checked, key=lambda x: x.margin)
         hint = ch
         good = sorted(_passing(verified), key=rank_key)
         best = good[0].margin if good else None
         say(f"round {rounds}: verified {stats['verified']} designs, best margin "
-            + ("none yet" if best is None else f"{best:.3f}") + f" (this one {v.margin:.3f})")
-    if best is not None and left() > 0.5 + 0.5 * top:
+            + ("none yet" if best is None else f"{best:.3f}") + f" (this round {len(checked)}, best {v.margin:.3f})")
+    if best is not None and left() > final_need():
         # Among designs as good as the best (within TIE), the simplest: fewest parts, BOM
         # lines and parts to buy.
-        v = _polish(spec, cands, best, offsets, seed, left, stats)
+        v = _polish(spec, cands, best, offsets, seed, max(min(0.5 * left(), left() - final_need()), 0.2), stats)
         if v is not None:
             (verified if v.margin >= 0 else failed).append(v)
     good = _distinct(sorted(_passing(verified), key=rank_key))
@@ -305,6 +333,8 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         # The figures a builder wants (swing, THD, clip limits) for the designs reported.
         designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
     designs = sorted(designs, key=rank_key)
+    if status == "feasible" and not designs:
+        status = "unknown"
     notes = []
     if status == "unknown":
         notes.append("time limit reached before any design passed every target; nothing is proved either way"
@@ -319,10 +349,6 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     stats["offsets"] = {k: round(v, 3) for k, v in offsets.items()}
     res = SearchResult(status, designs, cands.topology, bound=bound, near_misses=sorted(failed, key=rank_key)[:3],
                        notes=notes, stats=stats, candidates=cands)
-    if status == "infeasible" and not designs:
-        from .explain import explain
-
-        res.conflicts = explain(spec, cands, seed, deadline + 30.0)
     return res
 
 
@@ -351,11 +377,10 @@ def _needs_large(spec) -> bool:
     return spec.targets.required_swing() is not None or any(i.max_level is not None for i in spec.inputs)
 
 
-def _polish(spec, cands, best, offsets, seed, left, stats) -> Verified | None:
+def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     sm = _model(spec, cands, [], best - TIE, offsets)
     parts, lines, bought, tie = sm.simplicity()
     sm.m.minimize(parts * 10**4 + lines * 10**2 + bought)
-    t = max(left() * 0.5, 0.2)
     solver = _solver(seed, t, t)
     st = solver.solve(sm.m)
     stats["solves"] += 1

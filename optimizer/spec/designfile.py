@@ -1,5 +1,10 @@
 """Design files: a topology, its conditions and one value per part.
 
+Each part names a role of the file's topology (``optimizer.circuit.topologies``: the
+``ROLES`` of ``divider-ce``, ``feedback-ce``, ``follower-ce``, ``ce-follower`` or ``cb-sum``);
+a role the topology does not have, a missing required role, a role taken twice or a part
+whose ``requires`` partner is absent is reported as ``file:line: field: message``.
+
 ``stagefit check`` reads them; ``stagefit design`` writes them (``design-N.yaml``). Example::
 
     topology: divider-ce
@@ -106,6 +111,12 @@ def _check_roles(r: Reader, node: Node, topology: str, parts: list[Placed], n_in
     return ok
 
 
+def _topologies_with_role(role: str) -> list[str]:
+    from ..circuit.topologies import TOPOLOGIES
+
+    return [t for t in TOPOLOGIES if any(ro.name == role for ro in get_topology(t).ROLES)]
+
+
 def _part(r: _SpecReader, ref: str, node: Node, topology: str, n_inputs: int) -> Placed | None:
     topo = get_topology(topology)
     roles = {ro.name: ro for ro in topo.ROLES}
@@ -115,7 +126,15 @@ def _part(r: _SpecReader, ref: str, node: Node, topology: str, n_inputs: int) ->
     if not _REF.match(ref):
         r.problem(node.key_lines and node or node, f"parts.{ref}", "a designator is letters and a number, e.g. R1, C2, RV1")
         return None
-    role = r.choice(m.get("role"), list(roles))
+    rnode = m.get("role")
+    if rnode is not None and isinstance(rnode.value, str) and rnode.value not in roles:
+        elsewhere = _topologies_with_role(rnode.value)
+        if elsewhere:
+            # A role of another topology: say so, and list this topology's roles.
+            r.problem(rnode, rnode.path, f"{rnode.plain()!r} is not allowed: it is a role of {', '.join(elsewhere)}, "
+                                         f"not of {topology} (allowed: {', '.join(roles)})")
+            return None
+    role = r.choice(rnode, list(roles))
     if role is None:
         return None
     ro = roles[role]

@@ -1,7 +1,16 @@
 """Topologies: recipes that turn part values (by role) into a netlist.
 
-Each topology module defines ``NAME``, ``ROLES`` (what parts it has) and
-``build(values, inputs, load, model, supply)``. :data:`TOPOLOGIES` maps names to modules.
+Each topology module defines ``NAME``, ``SUMMARY``, ``ROLES`` (what parts it has), ``ORDER``
+(the builder's designator order) and ``build(parts, sources, load_r, load_c, model, supply)``.
+:data:`TOPOLOGIES` names them; :func:`get_topology` gives the module of a name.
+
+=================  ============================================================================
+``divider-ce``     common-emitter stage, divider bias, inputs summed at the base
+``feedback-ce``    common-emitter stage, collector-to-base feedback bias, virtual-earth summing
+``follower-ce``    bootstrapped emitter-follower input buffer (Q1) into a divider-ce gain stage (Q2)
+``ce-follower``    divider-ce gain stage (Q1) directly coupled into an emitter-follower buffer (Q2)
+``cb-sum``         common-base stage, inputs summed into the emitter
+=================  ============================================================================
 """
 
 from __future__ import annotations
@@ -47,12 +56,12 @@ class Placed:
 
 
 def _registry():
-    from . import divider_ce
+    from . import cb_sum, ce_follower, divider_ce, feedback_ce, follower_ce
 
-    return {m.NAME: m for m in (divider_ce,)}
+    return {m.NAME: m for m in (divider_ce, feedback_ce, follower_ce, ce_follower, cb_sum)}
 
 
-TOPOLOGIES = ("divider-ce",)
+TOPOLOGIES = ("divider-ce", "feedback-ce", "follower-ce", "ce-follower", "cb-sum")
 
 
 def get_topology(name: str):
