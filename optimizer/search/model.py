@@ -701,20 +701,24 @@ class StageModel:
 
     # -- objectives and cuts ---------------------------------------------------------------
     def simplicity(self):
-        """(parts, BOM lines, parts bought, tie-break) as linear expressions.
+        """(parts, BOM lines, parts bought, capacitor size, tie-break) as linear expressions.
 
         Parts: every part fitted. Lines: distinct (kind, value) pairs. Bought: parts not taken
-        from the stock list. Tie-break: the sum of item indices (smaller values first), so the
-        best design is unique and every run finds the same one.
+        from the stock list. Capacitor size: the sum over capacitors of the rank of the value
+        among that capacitor's candidates (smaller capacitors are smaller and cheaper).
+        Tie-break: the sum of item indices (smaller values first), so the best design is
+        unique and every run finds the same one.
         """
         m = self.m
         parts = 1  # the transistor
         bought = 0
         tie = 0
+        capsize = 0
         by_value: dict[tuple, list] = {}
         for key, xs in self.x.items():
             items = self.slot[key].items
             kind = self.slot[key].role.kind
+            ranks = {v: r for r, v in enumerate(sorted({round(it.value, 15) for it in items if not it.absent}))}
             for i, (it, bvar) in enumerate(zip(items, xs)):
                 if it.absent:
                     continue
@@ -722,6 +726,8 @@ class StageModel:
                 if it.source != "stock":
                     bought = bought + bvar
                 tie = tie + i * bvar
+                if kind == "C":
+                    capsize = capsize + ranks[round(it.value, 15)] * bvar
                 by_value.setdefault((kind, round(it.value, 15)), []).append(bvar)
         lines = 0
         for vals in by_value.values():
@@ -729,7 +735,7 @@ class StageModel:
             for bvar in vals:
                 m.add_implication(bvar, used)
             lines = lines + used
-        return parts, lines, bought, tie
+        return parts, lines, bought, capsize, tie
 
     def hint(self, choice) -> None:
         """Suggest a design to start from (the best of the previous round)."""

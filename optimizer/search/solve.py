@@ -6,13 +6,17 @@
    confirmed a second time with presolve on, since the solver has known wrong-answer bugs —
    no design can meet the spec, and the answer names the conflicting targets
    (:mod:`optimizer.search.explain`).
-2. Otherwise the model maximises the common margin (then prefers fewer parts, fewer BOM
-   lines, fewer parts to buy). Every design it finds is analysed in full at every corner; the
-   analysis' margin decides. Verified designs are cut from the model, and the model is asked
-   again, now only for designs that could beat the K-th best verified margin.
-3. When the model proves that no unseen design can beat the K-th best verified margin (within
-   ``TIE``), the top K are **optimal**. When time runs out first the status is **feasible**,
-   with the model's bound on what an unseen design could still reach.
+2. Each round the model maximises the common margin (with the offsets) above a floor: the
+   best verified margin so far plus ``TIE``. The last few improving solutions of the round
+   are analysed in full at every corner, together; the analysis' margin decides. Verified
+   designs are cut from the model, and the offsets learn how optimistic the model was.
+3. When the relaxation proves that no unseen design can beat the best verified margin
+   (within ``TIE``), the best is **optimal**; the search goes on for the top K, asking only
+   for designs that could beat the K-th best. When time runs out first the status is
+   **feasible** (or **unknown** when no design passed yet).
+4. The end: among designs as good as the best, the simplest (fewest parts, BOM lines, parts
+   to buy); the smallest capacitors that keep each design's margin; parts in stock swapped
+   in for bought ones of the same value. Each change is verified again before it is kept.
 
 Determinism: one worker, a fixed seed and a deterministic-time limit for every solve, a
 unique tie-break in the objective, and a total order for the ranking.
@@ -32,7 +36,7 @@ from .candidates import Candidates, build_candidates
 from .model import S, StageModel
 from .verify import Choice, Verified, verify
 
-__all__ = ["SearchResult", "search", "TIE", "rank_key"]
+__all__ = ["SearchResult", "search", "TIE", "rank", "rank_key"]
 
 _WORKERS = 1
 
@@ -72,14 +76,37 @@ class SearchResult:
     candidates: Candidates | None = None
 
 
-def rank_key(v: Verified):
-    """Ranking: margin (ties within TIE), then parts, BOM lines, parts to buy, cost, values."""
+def _simplicity(v: Verified) -> tuple:
+    """Parts, BOM lines, parts to buy, money to spend, capacitor size, then values (a total order)."""
     parts = len(v.design.parts) + 1
     lines = len({(p.ref.rstrip("0123456789"), round(p.value, 15)) for p in v.design.parts}) + 1
     bought = sum(1 for it in v.items.values() if it.source != "stock")
-    cost = sum(it.price or 0.0 for it in v.items.values() if it.source != "stock")
+    cost = round(sum(it.price or 0.0 for it in v.items.values() if it.source != "stock"), 6)
+    capsize = round(sum(math.log10(p.value) + 12 for p in v.design.parts if p.ref.startswith("C")), 9)
     values = tuple(round(p.value, 15) for p in v.design.parts)
-    return (-math.floor(v.margin / TIE), parts, lines, bought, cost, v.design.transistor, values)
+    return (parts, lines, bought, cost, capsize, v.design.transistor, values)
+
+
+def rank_key(v: Verified):
+    """A quick order: margin in steps of TIE, then simplicity (see :func:`rank` for the reported one)."""
+    return (-math.floor(v.margin / TIE), *_simplicity(v))
+
+
+def rank(vs: list[Verified]) -> list[Verified]:
+    """The reported ranking.
+
+    Designs whose margins are within TIE of the best count as equally good and are ordered by
+    simplicity: fewest parts, then fewest BOM lines, fewest parts to buy, least money, smallest
+    capacitors. The rest are ranked the same way against the best of those left.
+    """
+    left = sorted(vs, key=lambda v: (-v.margin, _simplicity(v)))
+    out = []
+    while left:
+        lead = left[0].margin
+        group = [v for v in left if v.margin >= lead - TIE]
+        left = [v for v in left if v.margin < lead - TIE]
+        out += sorted(group, key=_simplicity)
+    return out
 
 
 class _Collector(cp_model.CpSolverSolutionCallback):
@@ -167,7 +194,7 @@ def search(
     # Across topologies: the best designs of all, ranked together.
     if len(results) == 1:
         return results[0]
-    designs = sorted([d for r in results for d in r.designs], key=rank_key)[:top]
+    designs = rank([d for r in results for d in r.designs])[:top]
     statuses = [r.status for r in results]
     if all(s == "infeasible" for s in statuses):
         status = "infeasible"
@@ -216,17 +243,18 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     per_design = 0.0  # the longest verification seen, seconds per design
 
     def final_need() -> float:
-        # Time the end needs: the polish (one solve and one verification) and re-verifying
-        # the reported designs with large-signal figures or stock parts swapped in.
+        # Time the end needs (with a third to spare): the polish (one solve and one
+        # verification), the capacitor trim (a short solve and a verification per design)
+        # and re-verifying the reported designs with stock parts swapped in.
         n = min(top, len(_passing(verified)))
-        return 1.5 * per_design * (n + 1) + 1.0 if n else 0.0
+        return 1.3 * (per_design * (2 * n + 1) + (n + 1) * 1.0) if n else 0.0
 
     while (time.monotonic() < min(loop_end, deadline - final_need())
            and (best is None or time.monotonic() < polish_at)):
         rounds += 1
         # Phase 1: something better than the best so far. Phase 2 (once the best is proved):
         # something that could still enter the top K, above the K-th best verified.
-        good = sorted(_passing(verified), key=rank_key)
+        good = sorted(_passing(verified), key=lambda v: -v.margin)
         if not best_proved:
             floor = 0.0 if best is None else best + TIE
         else:
@@ -310,18 +338,20 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
                 offsets[name] = min(offsets.get(name, 0.0) + max(0.7 * (t_m - tr.margin), 2 * TIE), 1.0)
         v = max(checked, key=lambda x: x.margin)
         hint = ch
-        good = sorted(_passing(verified), key=rank_key)
-        best = good[0].margin if good else None
+        best = max((v.margin for v in _passing(verified)), default=None)
         say(f"round {rounds}: verified {stats['verified']} designs, best margin "
             + ("none yet" if best is None else f"{best:.3f}") + f" (this round {len(checked)}, best {v.margin:.3f})")
     if best is not None and left() > final_need():
         # Among designs as good as the best (within TIE), the simplest: fewest parts, BOM
         # lines and parts to buy.
-        v = _polish(spec, cands, best, offsets, seed, max(min(0.5 * left(), left() - final_need()), 0.2), stats)
+        v = _polish(spec, cands, best, offsets, seed, max(min(2.0, left() - final_need()), 0.2), stats)
         if v is not None:
             (verified if v.margin >= 0 else failed).append(v)
-    good = _distinct(sorted(_passing(verified), key=rank_key))
+    good = _distinct(rank(_passing(verified)))
     designs = good[:top]
+    if designs and left() > 1.3 * len(designs) * (2 * per_design + 1.0):
+        designs = _trim_capacitors(spec, cands, designs, offsets, seed, left,
+                                   lambda: 1.3 * len(designs) * per_design, stats)
     if designs and cands.stock is not None:
         # Stock first: a bought part whose value is in the drawer (with no wider tolerance)
         # is taken from the drawer instead, as far as the quantities go.
@@ -332,7 +362,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     if designs and designs[0].analysis.large == {}:
         # The figures a builder wants (swing, THD, clip limits) for the designs reported.
         designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
-    designs = sorted(designs, key=rank_key)
+    designs = rank(designs)
     if status == "feasible" and not designs:
         status = "unknown"
     notes = []
@@ -379,8 +409,8 @@ def _needs_large(spec) -> bool:
 
 def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     sm = _model(spec, cands, [], best - TIE, offsets)
-    parts, lines, bought, tie = sm.simplicity()
-    sm.m.minimize(parts * 10**4 + lines * 10**2 + bought)
+    parts, lines, bought, capsize, tie = sm.simplicity()
+    sm.m.minimize(parts * 10**8 + lines * 10**6 + bought * 10**4 + capsize)
     solver = _solver(seed, t, t)
     st = solver.solve(sm.m)
     stats["solves"] += 1
@@ -389,6 +419,54 @@ def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     pick, tr = sm.chosen(solver.boolean_value)
     stats["verified"] += 1
     return verify(spec, cands, [Choice.of(pick, tr)])[0]
+
+
+def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stats) -> list[Verified]:
+    """The smallest capacitors (and fewest BOM lines) that keep each design's margin.
+
+    The proposals' capacitors are whatever the model found first once the capacitors no
+    longer limit the margin; a builder would rather fit the smallest that do the job. With
+    the transistor, resistors and pots of a design fixed, the model picks the capacitors
+    for the fewest BOM lines and the smallest values at the design's own margin (less TIE);
+    the analysis has the last word, and a design is only replaced by a variant that keeps
+    its margin within TIE and stays distinct from the others.
+    """
+    proposals = []
+    for d in designs:
+        need = max(d.margin - TIE, 0.0)
+        sm = _model(spec, cands, [], need, offsets)
+        for key, i in d.choice.pick:
+            if cands.slot(*key).role.kind != "C":
+                sm.m.add(sm.x[key][i] == 1)
+        sm.m.add(sm.tr[d.choice.transistor] == 1)
+        _parts, lines, bought, capsize, _tie = sm.simplicity()
+        sm.m.minimize(lines * 10**6 + bought * 10**4 + capsize)
+        sm.hint(d.choice)
+        t = max(min(2.0, (left() - final_need()) / (2 * len(designs))), 0.1)
+        solver = _solver(seed, t, t)
+        st = solver.solve(sm.m)
+        stats["solves"] += 1
+        if st in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+            pick, tr = sm.chosen(solver.boolean_value)
+            ch = Choice.of(pick, tr)
+            if ch != d.choice:
+                proposals.append((d, ch))
+    if not proposals or left() < final_need():
+        return designs
+    checked = verify(spec, cands, [ch for _, ch in proposals])
+    stats["verified"] += len(checked)
+    better = {id(d): v for (d, _), v in zip(proposals, checked)
+              if v.margin >= max(d.margin - TIE, 0.0) and _simplicity(v) < _simplicity(d)}
+    out, keys = [], set()
+    for d in designs:
+        v = better.get(id(d), d)
+        key = _values_key(cands, v.choice)
+        if key in keys:
+            v = d
+            key = _values_key(cands, v.choice)
+        keys.add(key)
+        out.append(v)
+    return out
 
 
 def _distinct(vs: list[Verified]) -> list[Verified]:

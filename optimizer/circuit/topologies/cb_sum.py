@@ -2,14 +2,17 @@
 
 ::
 
-    vcc ──┬───────────────────┬
-          R bias_top          R collector
-          │                   c ── C output_cap ── out ── load
-          b ──────────────────┤ Q1
-          ├── C base_cap ── 0 │
-          R bias_bottom       e ── R emitter ── 0
-          0                   │
-    in k ─RS─ src k ─C input_cap─ [level_pot] ─ R input_series ─┘
+          vcc ──────────────┬
+           │                │
+           R bias_top       R collector
+           │                │
+           b (Q1 base)      c (Q1 collector) ── C output_cap ── out ── load
+           │
+           ├── C base_cap ── 0
+           R bias_bottom ── 0
+
+          e (Q1 emitter) ── R emitter ── 0
+          e ── R input_series k ── [level_pot k] ── C input_cap k ── src k ── RS k ── in k
 
 The divider holds the base and ``base_cap`` grounds it for signals; the emitter is then a
 low-impedance node (about r_e = V_T / I_E, tens of ohms), so each input drives a current of

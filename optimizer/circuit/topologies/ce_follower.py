@@ -3,13 +3,19 @@ emitter-follower output buffer (Q2).
 
 ::
 
-    vcc ──┬────────────────┬──────────────── Q2 collector
-          R bias_top       R collector
-          │                c ───────────────┤ Q2
-    in k ─RS─ src k ─C input_cap─ [level_pot] ─ R input_series ─ b ─┤ Q1     e_q2 ── C output_cap ── out ── load
-          R bias_bottom                          emitter ── R emitter ── e2          │
-          0                                      e2 ── R emitter_bypassed ∥ C bypass_cap ── 0
-                                                                          e_q2 ── R buffer_emitter ── 0
+          vcc ──────────────┬──────────────────── Q2 collector
+           │                │
+           R bias_top       R collector
+           │                │
+           b (Q1 base)      c (Q1 collector) ── Q2 base
+           │
+           R bias_bottom ── 0
+           │
+           └── R input_series k ── [level_pot k] ── C input_cap k ── src k ── RS k ── in k
+
+          Q1 emitter ── R emitter ── e2 ── R emitter_bypassed ∥ C bypass_cap ── 0
+          e_q2 (Q2 emitter) ── R buffer_emitter ── 0
+          e_q2 ── C output_cap ── out ── load
 
 Q2's base sits on Q1's collector, so the follower adds no coupling capacitor; the output
 impedance is about (collector / β + r_e) ∥ buffer_emitter, tens of ohms, so the stage can

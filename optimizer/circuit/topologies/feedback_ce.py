@@ -2,14 +2,19 @@
 
 ::
 
-    vcc ─────────────────────────┬
-                                 R collector
-           ┌─ R feedback ─ [f ─ R feedback_split] ─┤ c ── C output_cap ── out ── load
-           │                 (f ─ C feedback_cap ─ 0)
-    in k ─RS─ src k ─C input_cap─ [level_pot] ─ R input_series ─┬─ base ──┤ Q1
-                                                                │          │
-                                             R bias_bottom ── 0 (optional) emitter ── R emitter ── e2
-                                                                           e2 ── R emitter_bypassed ∥ C bypass_cap ── 0
+                        vcc
+                         │
+                         R collector
+                         │
+          ┌──────────────┴── c (Q1 collector) ── C output_cap ── out ── load
+          │
+          R feedback           split instead:  c ── R feedback ── f ── R feedback_split ── b
+          │                                                       f ── C feedback_cap ── 0
+          b (Q1 base) ── R bias_bottom ── 0  (optional)
+          │
+          └── R input_series k ── [RV level_pot k, bottom to 0] ── C input_cap k ── src k ── RS k ── in k
+
+          Q1 emitter ── R emitter ── e2 ── R emitter_bypassed ∥ C bypass_cap ── 0
 
 The feedback resistor is shunt feedback: it makes the base a low-impedance (virtual-earth)
 summing node, so a signal summed into it through ``input_series`` leaks little into the

@@ -3,16 +3,27 @@ gain stage (Q2) with divider bias.
 
 ::
 
-    vcc ──┬─────────────── Q1 collector          vcc ──┬──────────────────┬
-          R bias_top                                    R gain_bias_top    R gain_collector
-          ├── bs ── R bootstrap ──┐                     │                  ├ c_q2 ─ C output_cap ─ out ─ load
-          R bias_bottom           │                     │                  │
-          0                       │                     │                  │
-    in k ─RS─ src k ─C input_cap─ [level_pot] ─ R input_series ─ b ─┤ Q1   │
-                                                 e ─ C coupling_cap ─ b_q2 ┤ Q2
-          bs ── C bootstrap_cap ── e                    R gain_bias_bottom │
-          e ── R follower_emitter ── 0                  0          e_q2 ── R gain_emitter ── e2_q2
-                                                                   e2_q2 ── R gain_emitter_bypassed ∥ C gain_bypass_cap ── 0
+          vcc ──┬──────────────────────── Q1 collector
+                │
+                R bias_top
+                │
+                bs ── R bootstrap ── b (Q1 base) ── R input_series k ── [level_pot k] ── C input_cap k ── src k ── …
+                │
+                R bias_bottom ── 0
+
+          e (Q1 emitter) ── R follower_emitter ── 0
+          e ── C bootstrap_cap ── bs
+          e ── C coupling_cap ── b_q2
+
+          vcc ──┬──────────────────┐
+                │                  │
+                R gain_bias_top    R gain_collector
+                │                  │
+                b_q2 (Q2 base)     c_q2 (Q2 collector) ── C output_cap ── out ── load
+                │
+                R gain_bias_bottom ── 0
+
+          e_q2 (Q2 emitter) ── R gain_emitter ── e2_q2 ── R gain_emitter_bypassed ∥ C gain_bypass_cap ── 0
 
 Q1 is biased from the divider node ``bs`` through ``bootstrap``; ``bootstrap_cap`` drives
 ``bs`` with Q1's emitter, which follows the base, so the AC current through ``bootstrap``
