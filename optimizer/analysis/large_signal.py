@@ -279,9 +279,13 @@ def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
         last = res if last is None else _merge(last, res, ~done | (ok & (np.abs(val) < rel)))
         if done.all():
             break
-        # Next amplitude: grow until bracketed, then secant in log-log (bisection fallback).
+        # Next amplitude: grow (or shrink) until bracketed, then secant in log-log (bisection
+        # fallback).
         grow = np.isinf(hi)
-        step_up = amp * np.clip(np.exp(-val), 1.2, 4.0)
+        shrink = ~grow & (lo <= 0)
+        with np.errstate(over="ignore", invalid="ignore"):
+            step_up = amp * np.clip(np.exp(-val), 1.2, 4.0)
+            step_down = amp / np.clip(np.where(ok, np.exp(val), 4.0), 1.2, 4.0)
         with np.errstate(invalid="ignore", divide="ignore"):
             la, lb = np.log(np.maximum(lo, 1e-300)), np.log(np.where(np.isinf(hi), 1.0, hi))
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -291,7 +295,7 @@ def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
                 0.5 * (la + lb),
             )
         sec = np.clip(sec, la + 0.05 * (lb - la), lb - 0.05 * (lb - la))
-        nxt = np.where(grow, step_up, np.exp(sec))
+        nxt = np.where(grow, step_up, np.where(shrink, step_down, np.exp(sec)))
         amp = np.where(done, amp, nxt)
     return last, done
 
@@ -343,7 +347,8 @@ def thd_at_level(net: Network, op: OperatingPoint, level, drive_input: int = 1, 
 class ClipLimits:
     """Output excursions from the quiescent output (V, positive numbers) at which the stage
     clips: ``up`` (output rising) and ``down`` (output falling); ``up_cause``/``down_cause``
-    say which limit it is (``cutoff`` or ``saturation``)."""
+    say which limit it is: ``cutoff`` or ``saturation`` for a one-transistor stage, the
+    transistor named for a stage of several (``Q2 cutoff``, ``Q1 saturation``)."""
 
     up: np.ndarray
     down: np.ndarray
@@ -372,28 +377,86 @@ def clip_limits(net: Network, op: OperatingPoint, drive_input: int = 1, gain=Non
     fixed[net.fixed.index(f"in{drive_input}")] = emf.reshape(-1)
     fz = None if frozen is None else np.repeat(frozen, points, axis=1)
     start = {ref: (np.repeat(op.junction[ref][0], points), np.repeat(op.junction[ref][1], points)) for ref in op.junction}
-    sw = net.operating_point(big, frozen=fz, fixed=fixed, start=start)
-    vout = sw.v[net.circuit.output_node].reshape(B, points)
+    sw = net.operating_point(big, frozen=fz, fixed=fixed, start=start, strict=False)
+    # A far sweep point that does not converge lies beyond the clip point: it counts as weak,
+    # and the clip point is taken at the last converged sample before it.
+    conv = np.ones((B, points), bool) if sw.converged is None else sw.converged.reshape(B, points)
     mid = points // 2
+    if not conv[:, mid].all():
+        raise ConvergenceError("the quiescent point of the clip sweep could not be found")
+    vout = np.where(conv, sw.v[net.circuit.output_node].reshape(B, points), np.nan)
     v0 = vout[:, mid : mid + 1]
-    dv = np.gradient(vout, axis=1) / np.gradient(emf, axis=1)
+    with np.errstate(invalid="ignore"):
+        dv = np.gradient(vout, axis=1) / np.gradient(emf, axis=1)
     g0 = np.abs(dv[:, mid : mid + 1])
-    weak = np.abs(dv) < 0.5 * g0
+    weak = ~(np.abs(dv) >= 0.5 * g0)  # NaN (next to a sample that did not converge) is weak
     sign = np.sign(dv[:, mid])  # output moves with (+) or against (−) the input
     up, down = np.full(B, np.nan), np.full(B, np.nan)
     up_c, down_c = [], []
+    refs = [q.ref for q in net.circuit.transistors]
+    pnp = net.bjts[0][4].polarity == "pnp"
     for i in range(B):
         right = np.nonzero(weak[i, mid:])[0]
         left = np.nonzero(weak[i, : mid + 1][::-1])[0]
-        r_exc = vout[i, mid + right[0]] - v0[i, 0] if right.size else vout[i, -1] - v0[i, 0]
-        l_exc = vout[i, mid - left[0]] - v0[i, 0] if left.size else vout[i, 0] - v0[i, 0]
+        j_r = mid + right[0] if right.size else points - 1
+        j_l = mid - left[0] if left.size else 0
+        while not conv[i, j_r]:
+            j_r -= 1
+        while not conv[i, j_l]:
+            j_l += 1
+        r_exc = vout[i, j_r] - v0[i, 0]
+        l_exc = vout[i, j_l] - v0[i, 0]
         pos, neg = (r_exc, l_exc) if sign[i] >= 0 else (l_exc, r_exc)
+        j_pos, j_neg = (j_r, j_l) if sign[i] >= 0 else (j_l, j_r)
         up[i], down[i] = abs(pos), abs(neg)
-        pnp = net.bjts[0][4].polarity == "pnp"
-        # Output rising means the collector rises: the transistor turns off (NPN) or saturates (PNP).
-        up_c.append("saturation" if pnp else "cutoff")
-        down_c.append("cutoff" if pnp else "saturation")
+        # One transistor, its collector driving the output: output rising means the collector
+        # rises, so the transistor turns off (NPN) or saturates (PNP).
+        up_rule, down_rule = ("saturation", "cutoff") if pnp else ("cutoff", "saturation")
+        if len(refs) == 1:
+            up_c.append(up_rule)
+            down_c.append(down_rule)
+        else:
+            # Several transistors: the one that reached a limit at the clip point, named.
+            up_c.append(_limit_at(sw, refs, i * points + mid, i * points + j_pos, f"{refs[0]} {up_rule}"))
+            down_c.append(_limit_at(sw, refs, i * points + mid, i * points + j_neg, f"{refs[0]} {down_rule}"))
     return ClipLimits(up, down, up_c, down_c)
+
+
+#: A transistor whose base–collector junction is forward biased by this much (V) at a clip
+#: point is saturated; one whose collector current has fallen below this fraction of its
+#: quiescent value is cutting off.
+SAT_VBC = 0.4
+CUT_FRACTION = 0.2
+
+
+def _limit_at(sw: OperatingPoint, refs: list[str], k0: int, k: int, fallback: str) -> str:
+    """Which transistor limits the swing at sweep sample ``k`` (``k0``: the quiescent sample),
+    as ``"Q2 cutoff"`` or ``"Q1 saturation"``.
+
+    Saturation first (the most forward-biased base–collector junction beyond
+    :data:`SAT_VBC`), then cutoff (the lowest collector current relative to quiescent, below
+    :data:`CUT_FRACTION` of it); when neither is that clear, the transistor that moved
+    furthest toward either limit (collector current or collector–emitter voltage as a
+    fraction of quiescent); ``fallback`` when no transistor moved toward a limit.
+    """
+    sat, cut, moved = [], [], []
+    for ref in refs:
+        vbe, vbc = sw.junction[ref][0], sw.junction[ref][1]
+        vce0, vce = float(vbe[k0] - vbc[k0]), float(vbe[k] - vbc[k])
+        ic0, ic = float(sw.ic[ref][k0]), float(sw.ic[ref][k])
+        if float(vbc[k]) > SAT_VBC:
+            sat.append((-float(vbc[k]), ref))
+        r_ic = ic / ic0 if ic0 > 0 else np.inf
+        if r_ic < CUT_FRACTION:
+            cut.append((r_ic, ref))
+        r_vce = vce / vce0 if vce0 > 0 else np.inf
+        moved += [(r_ic, ref, "cutoff"), (r_vce, ref, "saturation")]
+    if sat:
+        return f"{min(sat)[1]} saturation"
+    if cut:
+        return f"{min(cut)[1]} cutoff"
+    r, ref, kind = min(moved)
+    return f"{ref} {kind}" if r < 1.0 else fallback
 
 
 def make_batch_like(batch: Batch, idx) -> Batch:

@@ -126,6 +126,8 @@ class OperatingPoint:
     iterations: int
     batch: Batch
     cap_voltage: dict[str, np.ndarray]
+    #: Which variants converged; None when all did (only ``strict=False`` leaves some out).
+    converged: np.ndarray | None = None
 
 
 @dataclass
@@ -289,6 +291,7 @@ class Network:
         fixed: np.ndarray | None = None,
         start: dict[str, tuple[np.ndarray, np.ndarray]] | None = None,
         max_iter: int = 100,
+        strict: bool = True,
     ) -> OperatingPoint:
         """Solve the DC operating point of a batch.
 
@@ -303,11 +306,14 @@ class Network:
             (nx, B) voltages of the fixed nodes (default: the supply, EMFs at 0).
         start
             Junction voltages (vbe, vbc) to start Newton from, per transistor designator.
+        strict
+            When False, variants that do not converge are returned as they stand and marked
+            in ``converged`` instead of raising (the clip sweep, whose far points may not).
 
         Raises
         ------
         ConvergenceError
-            If some variant does not converge even with supply stepping.
+            If some variant does not converge even with supply stepping (``strict`` only).
         """
         B = batch.size
         vx = self.fixed_dc(batch) if fixed is None else fixed
@@ -330,12 +336,15 @@ class Network:
             js2 = self._stepped(red, vx, params, bad, max_iter)
             js["vp"][:, bad] = js2["vp"]
             js["converged"][bad] = js2["converged"]
-            if not js["converged"].all():
+            if not js["converged"].all() and strict:
                 raise ConvergenceError(
                     f"the operating point of {int((~js['converged']).sum())} of {B} variants could not be "
                     "found; check that the supply, bias resistors and transistor are connected as intended",
                 )
-        return self._finish(red, G, vx, inj, params, batch, js)
+        op = self._finish(red, G, vx, inj, params, batch, js)
+        if not js["converged"].all():
+            op.converged = js["converged"].copy()
+        return op
 
     def _reduce(self, G, vx, inj):
         """Eliminate the internal nodes: Newton then runs on the ports only."""
