@@ -75,16 +75,25 @@ def _input_name(design, k: int) -> str:
     return f"input {k}"
 
 
+#: Nodes named by what they are rather than by a transistor terminal.
+_NAMED_NODES = {"f": "the feedback junction", "bs": "the bootstrap node"}
+_TERMINALS = ("collector", "base", "emitter")
+
+
 def node_words(node: str, circuit, design, away_from: str = "") -> str:
     """A circuit node in a builder's words, named by the part it connects to.
 
-    ``b`` is "Q1 base", ``c`` "Q1 collector", ``e``/``e2`` "Q1 emitter side", ``a{k}`` and
-    ``w{k}`` "the input-k side away from the source", ``src{k}`` "the input-k jack", ``out``
-    "the output", ``vcc`` "the supply (+)" and ``0`` "ground". ``away_from`` is the element
-    whose lead this is, left out when naming the parts on the node.
+    A transistor's terminal is named by the transistor: ``b`` is "Q1 base", ``c`` "Q1
+    collector", ``b_q2`` "Q2 base"; a node that is two terminals names both ("Q1 collector
+    and Q2 base"). An emitter and the junction between its emitter resistors (``e``/``e2``,
+    ``e_q2``/``e2_q2``) are "Q1 emitter side" (with the parts on it). ``f`` is "the feedback
+    junction" and ``bs`` "the bootstrap node" (with their parts); ``a{k}`` and ``w{k}`` "the
+    input-k side away from the source", ``src{k}`` "the input-k jack", ``out`` "the output",
+    ``vcc`` "the supply (+)" and ``0`` "ground". ``away_from`` is the element whose lead this
+    is, left out when naming the parts on the node.
     """
-    q = circuit.transistors[0].ref if circuit.transistors else "Q1"
-    others = sorted({e.ref for e, _ in circuit.neighbours(node) if e.part and e.ref != away_from}, key=designator_key)
+    others = sorted({e.ref for e, _ in circuit.neighbours(node) if e.part and e.kind != "Q" and e.ref != away_from},
+                    key=designator_key)
     via = f" ({', '.join(others)})" if others else ""
     if node == "0":
         return "ground"
@@ -92,12 +101,16 @@ def node_words(node: str, circuit, design, away_from: str = "") -> str:
         return "the supply (+)"
     if node == circuit.output_node:
         return "the output"
-    if node == "b":
-        return f"{q} base"
-    if node == "c":
-        return f"{q} collector"
-    if node in ("e", "e2"):
-        return f"{q} emitter side{via}"
+    terms = [(q.ref, _TERMINALS[i]) for q in circuit.transistors for i, n in enumerate(q.nodes) if n == node]
+    if terms:
+        if len(terms) == 1 and terms[0][1] == "emitter":
+            return f"{terms[0][0]} emitter side{via}"
+        return " and ".join(f"{ref} {what}" for ref, what in terms)
+    m = re.fullmatch(r"e2(?:_q(\d+))?", node)
+    if m:
+        return f"Q{m.group(1) or 1} emitter side{via}"
+    if node in _NAMED_NODES:
+        return f"{_NAMED_NODES[node]}{via}"
     m = re.fullmatch(r"(a|w|src)(\d+)", node)
     if m:
         k = int(m.group(2))
@@ -154,41 +167,55 @@ def _stock_item(stock, it):
     return None
 
 
-def _transistor_row(v, rating: dict, stock) -> dict:
+def _transistor_rows(v, rating: dict, stock) -> list[dict]:
+    """One BOM row per transistor (``rating["transistors"]``, else the circuit's), in
+    designator order; all are of the design's one type."""
     from ..catalog.transistors import transistor_types
 
     d = v.design
-    ref = rating.get("transistor", {}).get("ref", "Q1") if rating else "Q1"
+    qs = list((rating or {}).get("transistors") or [])
+    if not qs:
+        one = (rating or {}).get("transistor")
+        refs = [q.ref for q in v.analysis.circuit.transistors] or ["Q1"]
+        qs = [one] if one and len(refs) == 1 else [{"ref": r} for r in refs]
+    qs.sort(key=lambda q: designator_key(q.get("ref", "Q1")))
     tt = transistor_types().get(d.transistor)
-    diss = (rating or {}).get("transistor", {}).get("dissipation")
-    tmax = (rating or {}).get("transistor", {}).get("ambient_max", d.ambient.max)
-    notes = []
-    if tt is not None:
-        pins = "-".join(tt.pinout)
-        orientation = f"{ref}: pins {pins}, flat face toward you, leads down (check your part's datasheet)"
-        ttype = f"{tt.polarity.upper()}, {tt.package}"
-        rating_text = f"VCEO {tt.vceo:g} V, {format_si(tt.ptot_at(tmax), 'W')} at {tmax - 273.15:.0f} °C"
-        if diss is not None:
-            notes.append(f"dissipates up to {format_si(diss, 'W')}")
-    else:
-        orientation = f"{ref}: pinout not in the catalog; read it from your part's datasheet"
-        ttype = d.model.polarity.upper()
-        rating_text = ""
-    source, price = "buy", None
+    drawer = None
     if stock is not None:
-        for s in stock.items:
-            if s.kind == "transistor" and str(s.value) == d.transistor:
-                source, price = "stock", s.price
-                notes.append(f"stock line {s.line}: {s.quantity} in the drawer" + (f", {s.note}" if s.note else ""))
-                break
-    return {"designators": ref, "refs": [ref], "code": d.transistor, "value": "", "si": None, "kind": "transistor",
-            "type": ttype, "tolerance": "", "rating": rating_text, "quantity": 1, "source": source,
-            "price": price, "orientation": orientation, "orientations": [], "note": "; ".join(notes),
-            "stock_line": None}
+        drawer = next((s for s in stock.items if s.kind == "transistor" and str(s.value) == d.transistor), None)
+    rows = []
+    for q in qs:
+        ref = q.get("ref", "Q1")
+        diss = q.get("dissipation")
+        tmax = q.get("ambient_max", d.ambient.max)
+        notes = []
+        if tt is not None:
+            pins = "-".join(tt.pinout)
+            orientation = f"{ref}: pins {pins}, flat face toward you, leads down (check your part's datasheet)"
+            ttype = f"{tt.polarity.upper()}, {tt.package}"
+            rating_text = f"VCEO {tt.vceo:g} V, {format_si(tt.ptot_at(tmax), 'W')} at {tmax - 273.15:.0f} °C"
+            if diss is not None:
+                notes.append(f"dissipates up to {format_si(diss, 'W')}")
+        else:
+            orientation = f"{ref}: pinout not in the catalog; read it from your part's datasheet"
+            ttype = d.model.polarity.upper()
+            rating_text = ""
+        source, price = "buy", None
+        if drawer is not None:
+            source, price = "stock", drawer.price
+            notes.append(f"stock line {drawer.line}: {drawer.quantity} in the drawer" +
+                         (f", {drawer.note}" if drawer.note else ""))
+            if isinstance(drawer.quantity, (int, float)) and drawer.quantity < len(qs):
+                notes.append(f"the stage needs {len(qs)} of them")
+        rows.append({"designators": ref, "refs": [ref], "code": d.transistor, "value": "", "si": None,
+                     "kind": "transistor", "type": ttype, "tolerance": "", "rating": rating_text, "quantity": 1,
+                     "source": source, "price": price, "orientation": orientation, "orientations": [],
+                     "note": "; ".join(notes), "stock_line": None})
+    return rows
 
 
 def bom_rows(v, rating: dict | None, stock=None) -> list[dict]:
-    """The BOM of one verified design: one row per distinct part, transistor last.
+    """The BOM of one verified design: one row per distinct part, then one per transistor.
 
     Parameters
     ----------
@@ -283,7 +310,7 @@ def bom_rows(v, rating: dict | None, stock=None) -> list[dict]:
         rows.append(row)
     rows.sort(key=lambda r: (_KIND_ORDER[r["kind"]], designator_key(r["refs"][0])))
     if an.circuit.transistors:
-        rows.append(_transistor_row(v, rating, stock))
+        rows.extend(_transistor_rows(v, rating, stock))
     return rows
 
 
@@ -412,3 +439,17 @@ def buy_csv(rows: list[dict]) -> str:
     for r in rows:
         w.writerow([_money(r[c]) if c in ("unit_price", "line_cost") else r[c] for c in BUY_COLUMNS])
     return buf.getvalue()
+
+
+def is_polarised(el) -> bool:
+    from ..catalog.parts import default_capacitor_type, polarised
+
+    try:
+        return polarised(el.type or default_capacitor_type(el.value))
+    except Exception:  # an unknown type name: draw it without polarity
+        return False
+
+
+def polarised_caps(circuit) -> list[str]:
+    """Designators of the capacitors drawn with a + mark (electrolytic parts)."""
+    return [e.ref for e in circuit.parts if e.kind == "C" and is_polarised(e)]

@@ -25,6 +25,7 @@ __all__ = [
     "compare_plot",
     "frequency_data",
     "frequency_plot",
+    "gain_transistor",
     "headroom_data",
     "headroom_plot",
     "load_line_data",
@@ -147,11 +148,6 @@ def _gain_db(net, op, freqs: np.ndarray, chunk: int = 32) -> np.ndarray:
     return np.concatenate(parts, axis=-1)
 
 
-def _q_terminals(circuit):
-    q = circuit.transistors[0]
-    return q.ref, q.nodes[0], q.nodes[2], q.model.sign
-
-
 # ------------------------------------------------------------------------------------
 # 1. Frequency response
 
@@ -244,59 +240,162 @@ def _hz(f: float) -> str:
 # 2. Load lines
 
 
-def _resistances(circuit) -> dict:
-    """Collector, emitter (unbypassed, bypassed) and load resistances of a divider-ce stage."""
-    def val(role):
-        els = circuit.by_role(role)
-        return els[0].value if els else 0.0
+def gain_transistor(circuit):
+    """The transistor whose collector carries the stage's gain: the first one whose
+    collector is not tied to a rail (a follower's is), else Q1."""
+    rails = {circuit.supply_node, "0"}
+    return next((q for q in circuit.transistors if q.nodes[0] not in rails), circuit.transistors[0])
 
-    rc, re1, re2, rl = val("collector"), val("emitter"), val("emitter_bypassed"), val("load")
-    bypassed = bool(circuit.by_role("bypass_cap"))
-    r_ac_c = rc * rl / (rc + rl) if rl > 0 else rc
-    re_ac = re1 + (0.0 if bypassed else re2)
-    return {"rc": rc, "re1": re1, "re2": re2, "rl": rl, "re_total": re1 + re2, "re_ac": re_ac,
-            "r_ac_collector": r_ac_c, "r_dc": rc + re1 + re2, "r_ac": r_ac_c + re_ac}
+
+def _series_to_rail(circuit, start: str, used: set) -> list:
+    """Resistors (fitted parts, not an input's) in series from ``start`` to a rail, or []
+    when the node has no such path: at each node the resistor leading on, never back."""
+    rails = {circuit.supply_node, "0"}
+    quiet = {n for q in circuit.transistors for n in q.nodes} - {start} - rails
+    chain, node = [], start
+    while node not in rails:
+        nxt = [e for e, _ in circuit.neighbours(node) if e.kind == "R" and e.part and e.input is None
+               and e.ref not in used and e not in chain
+               and (e.nodes[1] if e.nodes[0] == node else e.nodes[0]) not in quiet]
+        # Only a plain series chain counts: one way on (or one straight to a rail).
+        to_rail = [e for e in nxt if set(e.nodes) & rails]
+        if to_rail:
+            nxt = to_rail[:1]
+        if len(nxt) != 1:
+            return []
+        e = nxt[0]
+        chain.append(e)
+        node = e.nodes[1] if e.nodes[0] == node else e.nodes[0]
+    return chain
+
+
+def _bypassed(circuit, e) -> bool:
+    """A resistor with a fitted capacitor across the same two nodes (an AC short)."""
+    return any(c.kind == "C" and c.part and set(c.nodes) == set(e.nodes) for c in circuit.elements)
+
+
+def _par(*rs: float) -> float:
+    rs = [r for r in rs if r > 0]
+    return 1.0 / sum(1.0 / r for r in rs) if rs else 0.0
+
+
+def _resistances(circuit) -> dict:
+    """The resistances the gain transistor's collector and emitter see, from the netlist.
+
+    DC: the collector's resistor chain to its rail plus the emitter's chain to its rail. AC:
+    the collector's chain in parallel with what the collector drives to signal ground — the
+    load through the output capacitor, a feedback resistor back to a base held nearly still
+    by the feedback (or to a junction a capacitor grounds), a follower's input (its β + 1 times
+    what its emitter drives) — plus the emitter's chain less any resistor a capacitor
+    bypasses; the emitter of a common-base stage is its input and counts as held.
+    ``dc_parts``/``ac_parts`` say the same in designators, for the plot.
+    """
+    q = gain_transistor(circuit)
+    c_node, b_node, e_node = q.nodes
+    rails = {circuit.supply_node, "0"}
+    rl_el = next((e for e in circuit.elements if e.role == "load"), None)
+    rl = rl_el.value if rl_el is not None else 0.0
+    rc_chain = _series_to_rail(circuit, c_node, set()) if c_node not in rails else []
+    re_chain = _series_to_rail(circuit, e_node, {e.ref for e in rc_chain}) if e_node not in rails else []
+    rc = sum(e.value for e in rc_chain)
+    re_unbyp = [e for e in re_chain if not _bypassed(circuit, e)]
+    common_base = any(e.role == "input_series" and e_node in e.nodes for e in circuit.elements)
+    # What the collector drives, besides its own resistor.
+    extra, words = [], []
+    out = circuit.output_node
+    for e, _ in circuit.neighbours(c_node):
+        if e.kind == "C" and e.part and out in e.nodes:
+            extra.append(rl)
+            words.append("load")
+        elif e.kind == "R" and e.part and e.role in ("feedback",):
+            other = e.nodes[1] if e.nodes[0] == c_node else e.nodes[0]
+            if other == b_node:
+                extra.append(e.value)
+                words.append(f"{e.ref} (to the base, held nearly still by the feedback)")
+            else:
+                grounded = any(x.kind == "C" and x.part and other in x.nodes and set(x.nodes) & rails
+                               for x in circuit.elements)
+                rest = sum(x.value for x in circuit.elements if x.kind == "R" and x.part and x is not e
+                           and other in x.nodes and b_node in x.nodes)
+                extra.append(e.value if grounded else e.value + rest)
+                words.append(f"{e.ref} (to a junction its capacitor grounds)" if grounded else
+                             f"{e.ref} + the rest of the feedback (to the base)")
+    for f in circuit.transistors:
+        if f is not q and f.nodes[1] == c_node:  # a follower's base on this collector
+            f_chain = _series_to_rail(circuit, f.nodes[2], set())
+            r_e = sum(x.value for x in f_chain)
+            drives_out = any(x.kind == "C" and x.part and f.nodes[2] in x.nodes and out in x.nodes
+                             for x in circuit.elements)
+            load_f = _par(r_e, rl) if drives_out else r_e
+            extra.append((f.model.beta + 1.0) * load_f)
+            names = "/".join(x.ref for x in f_chain) + (" ∥ load" if drives_out else "")
+            words.append(f"{f.ref}'s input (β + 1 = {f.model.beta + 1:.0f} times {names})")
+    r_ac_c = _par(rc, *extra) if rc > 0 else _par(*extra)
+    re_ac = 0.0 if common_base else sum(e.value for e in re_unbyp)
+    by = lambda role: next((e.value for e in re_chain if e.role.endswith(role)), 0.0)  # noqa: E731
+    re1, re2 = by("emitter"), by("emitter_bypassed")
+    dc_names = [e.ref for e in rc_chain + re_chain]
+    ac_c = " ∥ ".join([e.ref for e in rc_chain] + words) if words else "/".join(e.ref for e in rc_chain)
+    ac_e = ("" if common_base or not re_unbyp else " + " + " + ".join(e.ref for e in re_unbyp))
+    return {"transistor": q.ref, "rc": rc, "re1": re1, "re2": re2, "rl": rl, "re_total": sum(e.value for e in re_chain),
+            "re_ac": re_ac, "r_ac_collector": r_ac_c, "r_dc": rc + sum(e.value for e in re_chain),
+            "r_ac": r_ac_c + re_ac, "dc_parts": " + ".join(dc_names) or "no resistor",
+            "ac_parts": (ac_c or "no resistor") + ac_e,
+            "common_base": common_base}
 
 
 def load_line_data(an) -> dict:
-    """The load-line plot's numbers (currents in amperes, voltages in volts).
+    """The load-line plot's numbers (currents in amperes, voltages in volts), for the gain
+    transistor (:func:`gain_transistor`: Q2 of follower-ce, else Q1).
 
-    ``vce``, ``ic``: the nominal operating point, solved again by the engine at the
-    design's nominal conditions; ``corners``: (vce, ic) arrays at every corner of beta ×
-    supply × temperature; ``vcc``: nominal supply; ``r_dc``, ``r_ac``: the slopes' ohms;
+    ``transistor``: its designator; ``vce``, ``ic``: its nominal operating point, solved
+    again by the engine at the design's nominal conditions; ``corners``: (vce, ic) arrays at
+    every corner of beta × supply × temperature; ``vcc``: nominal supply; ``r_dc``, ``r_ac``:
+    the slopes' ohms (:func:`_resistances`), ``dc_parts``/``ac_parts`` what they are made of;
     ``cutoff``/``saturation``: (vce, ic) where the output clips, from the analysis' clip
-    limits moved along the AC load line (None when the analysis has no large-signal part).
+    limits moved along the AC load line, when that limit is this transistor's (None when the
+    analysis has no large-signal part); ``other_limits``: the clip limits of another
+    transistor, as (side, cause, excursion V) — they are not points on this load line.
     """
     from ..analysis.network import Network
 
     c, cond = an.circuit, an.conditions
     net = Network(c)
-    ref, cn, en, sign = _q_terminals(c)
+    q = gain_transistor(c)
+    ref, cn, en, sign = q.ref, q.nodes[0], q.nodes[2], q.model.sign
     pts = [_nominal_point(cond)] + _corner_points(cond)
     op = net.operating_point(_points_batch(pts))
     vce = (op.v[cn] - op.v[en]) * sign
     ic = op.ic[ref]
     r = _resistances(c)
     out = {"vcc": cond.supply[0], "vce": float(vce[0]), "ic": float(ic[0]),
-           "corners": (vce[1:], ic[1:]), **r, "cutoff": None, "saturation": None}
+           "corners": (vce[1:], ic[1:]), **r, "cutoff": None, "saturation": None, "other_limits": []}
     # Along the AC load line the load sees the collector's swing; VCE moves by the same
     # amount plus the drop across the unbypassed emitter resistor.
     k = r["r_ac"] / r["r_ac_collector"] if r["r_ac_collector"] > 0 else 1.0
+    several = len(c.transistors) > 1
     for side in ("up", "down"):
         exc = an.large.get(f"clip_{side}")
         cause = an.large.get(f"clip_{side}_cause")
-        if exc is None or cause not in ("cutoff", "saturation") or not np.isfinite(exc):
+        if exc is None or cause is None or not np.isfinite(exc):
             continue
-        dv = exc * k * (1.0 if cause == "cutoff" else -1.0)
-        out[cause] = (out["vce"] + dv, out["ic"] - dv / r["r_ac"])
+        who, _, kind = cause.rpartition(" ")
+        if kind not in ("cutoff", "saturation"):
+            continue
+        if (who or (ref if not several else "")) != ref:
+            out["other_limits"].append((side, cause, float(exc)))
+            continue
+        dv = exc * k * (1.0 if kind == "cutoff" else -1.0)
+        out[kind] = (out["vce"] + dv, out["ic"] - dv / r["r_ac"])
     return out
 
 
 def load_line_plot(an) -> bytes:
-    """Collector current against collector–emitter voltage: DC and AC load lines, the
-    operating point at nominal and at the corners, and the clip limits."""
+    """Collector current against collector–emitter voltage of the gain transistor: DC and AC
+    load lines, the operating point at nominal and at the corners, and the clip limits."""
     d = load_line_data(an)
-    pnp = an.circuit.transistors[0].model.polarity == "pnp"
+    q = an.circuit.element(d["transistor"])
+    pnp = q.model.polarity == "pnp"
     vcc, vq, iq = d["vcc"], d["vce"], d["ic"]
     ma = 1e3
     x_hi = max(vcc, vq + iq * d["r_ac"] if d["r_ac"] > 0 else vcc, float(np.max(d["corners"][0], initial=0.0)))
@@ -307,12 +406,12 @@ def load_line_plot(an) -> bytes:
     with _style():
         fig, (ax,) = _figure()
         ax.plot([0, vcc], [i_dc0 * ma, 0], color=SERIES[0], linewidth=1.6,
-                label=f"DC load line, {_ohm(d['r_dc'])} to a {vcc:g} V supply")
+                label=f"DC load line, {_ohm(d['r_dc'])} ({d['dc_parts']}) to a {vcc:g} V supply")
         if d["r_ac"] > 0:
             xs = np.array([0.0, vq + iq * d["r_ac"]])
             ys = iq - (xs - vq) / d["r_ac"]
             ax.plot(xs, ys * ma, color=SERIES[1], linewidth=1.6, linestyle="--",
-                    label=f"AC load line, {_ohm(d['r_ac'])}")
+                    label=f"AC load line, {_ohm(d['r_ac'])} ({_short(d['ac_parts'])})")
         cv, ci = d["corners"]
         ax.plot(cv, ci * ma, linestyle="none", marker="s", markersize=5, markerfacecolor="white",
                 markeredgecolor=SOFT, label="operating point at the corners")
@@ -325,13 +424,23 @@ def load_line_plot(an) -> bytes:
             ax.plot([p[0]], [p[1] * ma], linestyle="none", marker="D", markersize=6, color=NOT_MET)
             ax.annotate(f"{name} ({p[0]:.2f} V)", (p[0], p[1] * ma), textcoords="offset points", xytext=off,
                         fontsize=8, color=NOT_MET)
+        for i, (side, cause, exc) in enumerate(d["other_limits"]):
+            ax.annotate(f"output {'rising' if side == 'up' else 'falling'} clips first at {cause}, "
+                        f"{exc:.2f} V from rest (not on {d['transistor']}'s lines)",
+                        (0.01, 0.02 + 0.06 * i), xycoords="axes fraction", fontsize=7.5, color=NOT_MET)
         ax.set_xlim(0, x_hi)
         ax.set_ylim(0, y_hi * ma)
-        ax.set_xlabel("emitter–collector voltage, V" if pnp else "collector–emitter voltage, V")
-        ax.set_ylabel("collector current, mA")
-        ax.set_title("Load lines and operating point (clip points from the large-signal analysis)")
+        ax.set_xlabel(f"{d['transistor']} " + ("emitter–collector voltage, V" if pnp else "collector–emitter voltage, V"))
+        ax.set_ylabel(f"{d['transistor']} collector current, mA")
+        what = f"{d['transistor']}" + (" (the gain stage)" if len(an.circuit.transistors) > 1 else "")
+        ax.set_title(f"Load lines and operating point of {what}; clip points from the large-signal analysis",
+                     fontsize=9)
         ax.legend(loc="upper right", fontsize=7)
         return _png(fig)
+
+
+def _short(text: str, n: int = 70) -> str:
+    return text if len(text) <= n else text[: n - 1] + "…"
 
 
 def _ohm(r: float) -> str:
@@ -348,8 +457,9 @@ def headroom_data(an, supplies=None, points: int = 7) -> dict:
     """Swing at the THD limit (V peak at the load) against supply voltage.
 
     The supplies run from the design's minimum to maximum (``points`` of them, plus the
-    nominal); nominal part values and ambient; beta nominal, minimum and maximum. One
-    batch of supplies × betas goes through the harmonic-balance search.
+    nominal); nominal part values and ambient; beta nominal, minimum and maximum (every
+    transistor at once: they are of one type). One batch of supplies × betas goes through
+    the harmonic-balance search.
 
     Returns ``supplies`` (S,), ``betas`` (nb,), ``beta_labels``, ``swing`` (nb, S) with
     NaN where the search found no swing, and ``thd_limit``.
@@ -364,8 +474,8 @@ def headroom_data(an, supplies=None, points: int = 7) -> dict:
         supplies = np.linspace(s_min, s_max, points) if s_max > s_min else np.array([s_nom])
         supplies = np.unique(np.round(np.append(supplies, s_nom), 9))
     supplies = np.asarray(supplies, dtype=float)
-    q = c.transistors[0].ref
-    b_nom, b_lo, b_hi = cond.beta[q]
+    refs = [t.ref for t in c.transistors]  # every transistor is of the one type: they move together
+    b_nom, b_lo, b_hi = cond.beta[refs[0]]
     betas, labels = [b_nom], [f"beta nominal ({b_nom:.0f})"]
     if b_lo != b_nom:
         betas.append(b_lo)
@@ -373,7 +483,7 @@ def headroom_data(an, supplies=None, points: int = 7) -> dict:
     if b_hi != b_nom:
         betas.append(b_hi)
         labels.append(f"beta maximum ({b_hi:.0f})")
-    pts = [(s, cond.ambient[0], {q: b}) for b in betas for s in supplies]
+    pts = [(s, cond.ambient[0], {q: b for q in refs}) for b in betas for s in supplies]
     net = Network(c)
     op = net.operating_point(_points_batch(pts))
     gain = np.abs(fig.midband(net, op).gain[0])

@@ -25,7 +25,8 @@ FIGURES = (
     ("frequency", "Frequency response",
      "Gain from each input to the load against frequency, at the nominal point and the corners."),
     ("loadline", "Load line",
-     "The transistor's operating point on its DC and AC load lines; the distance to the ends is the room to swing."),
+     "The gain transistor's operating point on its DC and AC load lines; the distance to the ends is the room to "
+     "swing."),
     ("headroom", "Headroom against supply",
      "Undistorted output swing as the supply falls from fresh to tired, against the level the spec asks for."),
     ("montecarlo", "Monte Carlo spread",
@@ -127,7 +128,7 @@ def _ranked(result, rated, stock) -> str:
 
     boms = [bom_rows(v, rated.get(id(v)), stock) for v in ds]
     row("margin", [_e(_margin_text(v.margin)) for v in ds])
-    row("parts (with the transistor)", [str(len(v.design.parts) + 1) for v in ds])
+    row("parts (with the transistors)", [str(len(v.design.parts) + len(v.analysis.circuit.transistors)) for v in ds])
     row("distinct values (BOM lines)", [str(len(b)) for b in boms])
     row("parts from stock", [f"{sum(1 for it in v.items.values() if it.source == 'stock')} of {len(v.design.parts)}"
                              for v in ds])

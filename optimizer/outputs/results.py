@@ -7,7 +7,7 @@ import math
 from ..spec.quantities import format_code, format_si
 from .figures_json import analysis_json
 
-__all__ = ["design_entry", "result_json", "ranked_table"]
+__all__ = ["KEY_ROLES", "design_entry", "design_key", "result_json", "ranked_table"]
 
 
 def _f(x):
@@ -15,6 +15,31 @@ def _f(x):
         return None
     x = float(x)
     return None if math.isnan(x) else (1e300 if x == math.inf else (-1e300 if x == -math.inf else x))
+
+
+#: Per topology, the roles whose values characterise a design in the ranked table: the gain
+#: stage's bias and load resistors, and its emitter resistors.
+KEY_ROLES = {
+    "divider-ce": (("bias_top", "bias_bottom", "collector"), ("emitter", "emitter_bypassed")),
+    "feedback-ce": (("feedback", "feedback_split", "bias_bottom", "collector"), ("emitter", "emitter_bypassed")),
+    "follower-ce": (("gain_bias_top", "gain_bias_bottom", "gain_collector"), ("gain_emitter", "gain_emitter_bypassed")),
+    "ce-follower": (("bias_top", "bias_bottom", "collector"), ("emitter", "emitter_bypassed")),
+    "cb-sum": (("bias_top", "bias_bottom", "collector"), ("emitter",)),
+}
+
+
+def design_key(design) -> tuple[str, str]:
+    """(bias/load values, emitter values) of a design as value codes, e.g. ``47K/10K/2K2`` and
+    ``100+1K`` (``0`` for a grounded emitter), by the roles of :data:`KEY_ROLES` for its
+    topology (every fixed resistor role but the emitter ones for a topology not listed)."""
+    core = {p.role: p for p in design.parts if p.input is None}
+    roles = KEY_ROLES.get(design.topology)
+    if roles is None:
+        emit_roles = tuple(r for r in core if r.endswith(("emitter", "emitter_bypassed")))
+        roles = (tuple(r for r, p in core.items() if not p.ref.startswith("C") and r not in emit_roles), emit_roles)
+    key = "/".join(format_code(core[r].value, "resistance") for r in roles[0] if r in core)
+    emit = "+".join(format_code(core[r].value, "resistance") for r in roles[1] if r in core) or "0"
+    return key, emit
 
 
 def design_entry(rank: int, v, ratings: dict | None = None) -> dict:
@@ -81,14 +106,12 @@ def ranked_table(result, spec) -> str:
         n = an.circuit.n_inputs
         gl = min(an.low[f"gain_db:{k}"] for k in range(1, n + 1))
         gh = max(an.high[f"gain_db:{k}"] for k in range(1, n + 1))
-        core = {p.role: p for p in v.design.parts}
-        key = "/".join(format_code(core[r].value, "resistance") for r in ("bias_top", "bias_bottom", "collector") if r in core)
-        emit = "+".join(format_code(core[r].value, "resistance") for r in ("emitter", "emitter_bypassed") if r in core) or "0"
+        key, emit = design_key(v.design)
         sw = an.large_worst.get("swing", float("nan"))
         rows.append([
             i,
             f"{v.margin:+.3f}",
-            len(v.design.parts) + 1,
+            len(v.design.parts) + len(an.circuit.transistors),
             v.design.transistor,
             key,
             emit,
@@ -97,5 +120,12 @@ def ranked_table(result, spec) -> str:
             format_si(max(an.high[f"low_cutoff:{k}"] for k in range(1, n + 1)), "Hz"),
             format_si(an.high["supply_current"], "A"),
         ])
-    return table(["#", "margin", "parts", "transistor", "R1/R2/RC", "RE", "gain dB", "swing", "low -3dB", "current"],
-                 rows, "rrrlllrrrr")
+    topologies = {v.design.topology for v in result.designs}
+    heads = ["#", "margin", "parts", "transistor", "bias/load", "emitter", "gain dB", "swing", "low -3dB", "current"]
+    align = "rrrlllrrrr"
+    if len(topologies) > 1:  # designs of several topologies: say which each is
+        for r, v in zip(rows, result.designs):
+            r.insert(3, v.design.topology)
+        heads.insert(3, "topology")
+        align = "rrrl" + align[3:]
+    return table(heads, rows, align)
