@@ -59,12 +59,19 @@ def _feasible(spec, cands, on: set[str], seed, seconds) -> int:
 
 
 def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[Conflict]:
-    """A minimal set of conflicting targets, with the nearest value of each."""
+    """A minimal set of conflicting targets, with the nearest value of each.
+
+    The work is shared out so the answer comes by ``deadline`` (at least a few seconds are
+    always taken). A solve that runs out of time proves nothing: a target it could not
+    settle stays in the set, and its nearest value is reported as not determined.
+    """
+    budget = max(deadline - time.monotonic(), 3.0)
+    end = time.monotonic() + budget
     sm = StageModel(spec, cands)
     names = list(sm.on)
     sm.m.add(sm.u.expr >= S)
     sm.m.add_assumptions(list(sm.on.values()))
-    solver = _solver(seed, 10.0)
+    solver = _solver(seed, min(10.0, 0.3 * budget))
     st = solver.solve(sm.m)
     if st != cp_model.INFEASIBLE:
         core = set(names)
@@ -73,35 +80,49 @@ def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[C
         core = {idx[i] for i in solver.sufficient_assumptions_for_infeasibility() if i in idx} or set(names)
     # Deletion loop: drop a target; if the rest is still infeasible, it was not needed.
     for name in sorted(core):
-        if time.monotonic() > deadline + 30:
+        left = end - time.monotonic()
+        if left <= 0.5:
             break
         trial = core - {name}
-        if trial and _feasible(spec, cands, trial, seed, 5.0) == cp_model.INFEASIBLE:
+        if trial and _feasible(spec, cands, trial, seed, min(5.0, 0.5 * left / max(len(core), 1))) == cp_model.INFEASIBLE:
             core = trial
     out = []
-    for name in sorted(core):
-        t = _nearest(spec, cands, name, core, seed)
+    for k, name in enumerate(sorted(core)):
+        left = end - time.monotonic()
+        t = _nearest(spec, cands, name, core, seed, max(min(10.0, left / (len(core) - k)), 0.2))
         out.append(_describe(spec, name, t))
     return out
 
 
-def _nearest(spec, cands, name, core, seed) -> float:
-    """The best margin of one target with the other targets of the spec at margin ≥ 0."""
+def _nearest(spec, cands, name, core, seed, seconds) -> float | None:
+    """The best margin of one target with the other targets of the spec at margin ≥ 0.
+
+    Returns the margin when proved, the solver's bound when time ran out with a solution
+    (no design can beat it), −inf when the others cannot all be met, None when undecided.
+    """
     sm = StageModel(spec, cands, separate=name)
     for other, lit in sm.on.items():
         sm.m.add(lit == 1)
     sm.m.add(sm.u.expr >= S)
     sm.m.maximize(sm.u_sep.expr)
-    solver = _solver(seed, 10.0)
+    solver = _solver(seed, seconds)
     st = solver.solve(sm.m)
     if st in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         bound = solver.best_objective_bound if st == cp_model.FEASIBLE else solver.value(sm.u_sep.expr)
         return math.log(max(bound, 1) / S)
-    return -math.inf
+    if st == cp_model.INFEASIBLE:
+        return -math.inf
+    return None
 
 
-def _describe(spec: Spec, name: str, t: float) -> Conflict:
+def _describe(spec: Spec, name: str, t: float | None) -> Conflict:
     tg = spec.targets
+    if t is None:
+        return Conflict(name, _asked(spec, name), "not determined", -math.inf,
+                        f"{name}: in conflict with the others; how near it could come was not determined in the time given")
+    if t > 0:
+        return Conflict(name, _asked(spec, name), "met alone", 0.0,
+                        f"{name}: can be met with the others one at a time, but not all together")
     f = math.exp(t) if math.isfinite(t) else 0.0
     never = not math.isfinite(t)
     if name == "gain" and tg.gain:
@@ -145,3 +166,23 @@ def _describe(spec: Spec, name: str, t: float) -> Conflict:
     sup = spec.supply
     text = f"at {sup.min:g}–{sup.max:g} V, {text}"
     return Conflict(name, asked, reach, t, text)
+
+
+def _asked(spec: Spec, name: str) -> str:
+    """What the spec asks of a target, in words."""
+    tg = spec.targets
+    if name == "gain" and tg.gain:
+        return f"{tg.gain.min:+.1f} .. {tg.gain.max:+.1f} dB"
+    if name == "headroom" and tg.headroom_min is not None:
+        return f"{tg.headroom_min:g} dB"
+    if name == "headroom" and tg.required_swing() is not None:
+        return f"{tg.required_swing():.3g} V peak"
+    if name == "input impedance" and tg.input_impedance_min is not None:
+        return format_si(tg.input_impedance_min, "Ω")
+    if name == "output impedance" and tg.output_impedance_max is not None:
+        return format_si(tg.output_impedance_max, "Ω")
+    if name == "low cutoff" and tg.low_cutoff_max is not None:
+        return format_si(tg.low_cutoff_max, "Hz")
+    if name == "supply current" and tg.supply_current_max is not None:
+        return format_si(tg.supply_current_max, "A")
+    return "active at every corner" if name == "active region" else name

@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from ortools.sat.python import cp_model
 
@@ -89,7 +89,8 @@ def _simplicity(v: Verified) -> tuple:
 
 def rank_key(v: Verified):
     """A quick order: margin in steps of TIE, then simplicity (see :func:`rank` for the reported one)."""
-    return (-math.floor(v.margin / TIE), *_simplicity(v))
+    m = v.margin if math.isfinite(v.margin) else (-1e9 if v.margin < 0 else 1e9)
+    return (-math.floor(m / TIE), *_simplicity(v))
 
 
 def rank(vs: list[Verified]) -> list[Verified]:
@@ -187,12 +188,29 @@ def search(
     start = time.monotonic()
     deadline = start + time_limit
     results = []
-    for topology in spec.topologies:
-        cands = build_candidates(spec, topology, stock)
+    topologies = list(spec.topologies)
+    all_cands = {t: build_candidates(spec, t, stock) for t in topologies}
+    skipped, score = [], {}
+    if len(topologies) > 1:
+        topologies, skipped, score = _share_out(spec, all_cands, seed, say)
+    # The relaxation's topologies (which can prove what they find) get half the time, unless
+    # the quick look puts them well behind another.
+    others = sum(1 for t in topologies if t not in RELAXATION_TOPOLOGIES)
+    top_score = max(score.values(), default=0.0)
+    weights = [max(others, 1) if t in RELAXATION_TOPOLOGIES and score.get(t, 0.0) >= top_score - 0.3 else 1.0
+               for t in topologies]
+    for n, topology in enumerate(topologies):
+        cands = all_cands[topology]
         say(f"{topology}: {len(cands.slots)} parts to choose, {cands.size():.3g} combinations")
-        results.append(_search_topology(spec, cands, top, deadline, seed, say, start))
+        # Each topology gets its weighted share of the time left (one that finishes early
+        # leaves its time to the rest).
+        share = time.monotonic() + (deadline - time.monotonic()) * weights[n] / sum(weights[n:])
+        if topology in RELAXATION_TOPOLOGIES:
+            results.append(_search_topology(spec, cands, top, share, seed, say, start))
+        else:
+            results.append(_search_local(spec, cands, top, share, seed, say, start))
     # Across topologies: the best designs of all, ranked together.
-    if len(results) == 1:
+    if len(results) == 1 and not skipped:
         return results[0]
     designs = rank([d for r in results for d in r.designs])[:top]
     statuses = [r.status for r in results]
@@ -206,11 +224,77 @@ def search(
         status = "feasible"
     merged = SearchResult(status, designs, "+".join(r.topology for r in results),
                           bound=max((r.bound for r in results if r.bound is not None), default=None),
-                          conflicts=[c for r in results for c in r.conflicts],
+                          conflicts=[replace(c, text=f"{r.topology}: {c.text}") for r in results for c in r.conflicts],
                           near_misses=sorted([d for r in results for d in r.near_misses], key=rank_key)[:3])
     for r in results:
-        merged.notes += [f"{r.topology}: {n}" for n in r.notes]
+        merged.notes += [n if n.startswith(r.topology + ":") else f"{r.topology}: {n}" for n in r.notes]
+        if r.status == "infeasible":
+            merged.notes.append(f"{r.topology}: no design can meet every target"
+                                + (" (" + "; ".join(c.text for c in r.conflicts[:2]) + ")" if r.conflicts else ""))
+    merged.notes += skipped
+    merged.stats = {r.topology: {"status": r.status, **r.stats} for r in results}
+    if designs:
+        won = designs[0].design.topology
+        merged.notes.insert(0, f"best topology: {won}")
     return merged
+
+
+#: A topology whose quick look is this far (nepers) behind the best one's is not searched.
+HOPELESS = 0.7
+#: How many topologies besides the relaxation's are searched in depth.
+LOCAL_TOPOLOGIES = 2
+
+
+def _share_out(spec, all_cands, seed, say) -> tuple[list[str], list[str]]:
+    """Order the topologies for the search and leave out the hopeless ones (a quick look)."""
+    from .local import triage
+
+    score = {}
+    for t, c in all_cands.items():
+        try:
+            score[t] = triage(spec, c, seed)
+        except Exception as exc:  # a topology the quick look cannot handle is still searched
+            say(f"{t}: quick look failed ({type(exc).__name__}); searched anyway")
+            score[t] = 0.0
+        say(f"{t}: quick look, best margin {score[t]:+.3f}")
+    best = max(score.values())
+    # The relaxation's topologies are always searched (they can prove what they find); of the
+    # others, the LOCAL_TOPOLOGIES best on the quick look that are not hopeless.
+    order = sorted((t for t in all_cands if t not in RELAXATION_TOPOLOGIES), key=lambda t: -score[t])
+    local = [t for t in order if score[t] >= min(best - HOPELESS, 0.0)][:LOCAL_TOPOLOGIES]
+    keep = [t for t in all_cands if t in RELAXATION_TOPOLOGIES or t in local]
+    notes = [f"{t}: left out after a quick look (best margin {score[t]:+.2f} against {best:+.2f} for"
+             f" {max(score, key=score.get)}); pin it with topology: {t} to search it anyway"
+             for t in all_cands if t not in keep]
+    return keep, notes, score
+
+
+#: Topologies the CP-SAT relaxation (:class:`StageModel`) encodes; the others are searched
+#: by the neighbourhood table model (:mod:`optimizer.search.local`).
+RELAXATION_TOPOLOGIES = ("divider-ce",)
+
+
+def _search_local(spec: Spec, cands: Candidates, top: int, deadline: float, seed: int, say, start) -> SearchResult:
+    from .local import local_search
+
+    got = local_search(spec, cands, top, deadline, seed, say)
+    designs = _distinct(rank(got["designs"]))[:top]
+    if designs and cands.stock is not None and time.monotonic() < deadline:
+        swapped = [_from_stock(cands, d.choice) for d in designs]
+        if any(ch != d.choice for ch, d in zip(swapped, designs)):
+            again = verify(spec, cands, swapped, large_signal=True)
+            designs = [a if a.margin >= 0 else d for a, d in zip(again, designs)]
+    if designs and designs[0].analysis.large == {}:
+        designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
+    designs = rank(designs)
+    status = "feasible" if designs else "unknown"
+    notes = list(got["notes"])
+    if not designs:
+        notes.append("no design of this topology passed every target in the time given; nothing is proved either way")
+    stats = dict(got["stats"])
+    stats["seconds"] = round(time.monotonic() - start, 2)
+    return SearchResult(status, designs, cands.topology, near_misses=got["failed"], notes=notes, stats=stats,
+                        candidates=cands)
 
 
 def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, seed: int, say, start) -> SearchResult:

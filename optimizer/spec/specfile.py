@@ -14,6 +14,7 @@ import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
+from ..circuit.topologies import TOPOLOGIES  # the names a spec may use
 from ..errors import Problem, display_path
 from .quantities import format_si, parse_quantity, parse_tolerance, parse_value
 from .source import Node, Reader, load_yaml
@@ -32,7 +33,6 @@ __all__ = [
 ]
 
 USES = ("stock-only", "stock-first", "series-only")
-TOPOLOGIES = ("divider-ce",)
 
 
 @dataclass(frozen=True)
