@@ -107,6 +107,9 @@ def analysis_json(an, ratings: dict | None = None, targets=None, mc=None) -> dic
                        if an.large["clip_up"] > 0 and an.large["clip_down"] > 0 else None}
     if an.noise:
         out["noise"] = {"output_rms": _f(an.noise["output_rms"])}
+    mx = mixing_of(an)
+    if mx is not None:
+        out["mixing"] = mx
     worst: dict = {
         "operating_point": {k: {"min": _f(an.low[k]), "max": _f(an.high[k])} for k in OP_KEYS},
         "transistors": {q: {k: {"min": _f(an.low[f"{k}:{q}"]), "max": _f(an.high[f"{k}:{q}"])} for k in Q_KEYS}
@@ -149,6 +152,18 @@ def analysis_json(an, ratings: dict | None = None, targets=None, mc=None) -> dic
 
 def _db(x):
     return f"{x:+.2f} dB"
+
+
+def mixing_of(an) -> dict | None:
+    """The mixing figures (:func:`optimizer.analysis.mixing.mixing`) of a stage with several
+    inputs or a level control, at nominal conditions; None for one input without a control."""
+    c = an.circuit
+    if c.n_inputs < 2 and not any(e.kind == "POT" and e.input is not None for e in c.elements):
+        return None
+    from ..analysis.mixing import mixing
+
+    names = an.design.input_names or tuple(str(k) for k in range(1, c.n_inputs + 1))
+    return mixing(c, an.conditions.supply[0], an.conditions.ambient[0], tuple(names))
 
 
 def analysis_text(an, ratings: dict | None = None, targets=None) -> str:
@@ -213,6 +228,12 @@ def analysis_text(an, ratings: dict | None = None, targets=None) -> str:
                          f"rate ≥ {cap['rating']:g} V")
             else:
                 L.append(f"  {cap['ref']}: DC near 0 or changing sign: use a non-polarised (film or bipolar) part")
+    mx = mixing_of(an)
+    if mx is not None:
+        from ..analysis.mixing import mixing_text
+
+        L.append("")
+        L.append(mixing_text(mx))
     if targets:
         L.append("")
         L.append("  target                 limit                          worst        margin")
