@@ -541,23 +541,17 @@ def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stat
     stats["verified"] += len(checked)
     better = {id(d): v for (d, _), v in zip(proposals, checked)
               if v.margin >= max(d.margin - TIE, 0.0) and _simplicity(v) < _simplicity(d)}
-    out, keys = [], set()
-    for d in designs:
-        v = better.get(id(d), d)
-        key = _values_key(cands, v.choice)
-        if key in keys:
-            v = d
-            key = _values_key(cands, v.choice)
-        keys.add(key)
-        out.append(v)
-    return out
+    return _distinct(rank([better.get(id(d), d) for d in designs]))
 
 
 def _distinct(vs: list[Verified]) -> list[Verified]:
-    """Keep the first of designs with the same transistor and values (stock or bought alike)."""
+    """Keep the first of designs with the same transistor and resistor and pot values (stock
+    or bought alike): alternatives that differ only in their capacitors are not worth a
+    builder's look, and the ranking puts the smaller capacitors first."""
     out, seen = [], set()
     for v in vs:
-        key = (v.design.transistor, tuple((p.role, p.input, round(p.value, 15)) for p in v.design.parts))
+        key = (v.design.transistor, tuple((p.role, p.input, round(p.value, 15)) for p in v.design.parts
+                                          if not p.ref.startswith("C")))
         if key not in seen:
             seen.add(key)
             out.append(v)
