@@ -271,7 +271,7 @@ def bom_rows(v, rating: dict | None, stock=None) -> list[dict]:
             res = rr.get(p.ref)
             rating_text = power_text(res["rating"]) if res else ""
             if res and not res["full_supply_ok"]:
-                notes.append(f"{p.ref}: {format_si(res['full_supply'], 'W')} if the full supply ever lands across it "
+                notes.append(f"{format_si(res['full_supply'], 'W')} if the full supply ever lands across it "
                              f"(a fault elsewhere); {rating_text} is enough in normal use")
             if st is not None and st.rating is not None and res and st.rating < res["rating"] - 1e-12:
                 notes.append(f"the drawer part is rated {power_text(st.rating)}, below the {rating_text} needed")
