@@ -63,6 +63,7 @@ from optimizer.catalog.series import get_series  # noqa: E402
 from optimizer.catalog.transistors import transistor_types  # noqa: E402
 from optimizer.circuit.topologies import Placed, get_topology  # noqa: E402
 from optimizer.errors import ConvergenceError  # noqa: E402
+from optimizer.errors import FileProblems  # noqa: E402
 from optimizer.search.candidates import build_candidates  # noqa: E402
 from optimizer.search.enumerate import enumerate_designs, space_size  # noqa: E402
 from optimizer.search.model import sizing_rule_ok  # noqa: E402
@@ -761,7 +762,15 @@ def part_growth(quick: bool, out: Out, seed: int, stock_dir: str | None) -> dict
     runs = []
 
     def one(axis, value, spec, stock=None):
-        cands = build_candidates(spec, TOPOLOGY, stock)
+        try:
+            cands = build_candidates(spec, TOPOLOGY, stock)
+        except FileProblems as err:  # a small generated stock list may lack a role's values
+            runs.append({"axis": axis, "value": value, "status": "no candidates", "seconds": 0.0, "time_limit": limit,
+                         "over_limit_seconds": 0.0, "best_margin": None, "bound": None, "designs": 0, "items": 0,
+                         "combinations": 0.0, "solves": None, "verified": None, "inputs": len(spec.inputs),
+                         "series": spec.parts.resistor_series, "reason": str(err).splitlines()[-1].strip()})
+            out.say(f"  {axis} {value}: no candidates ({runs[-1]['reason']})")
+            return
         t0 = time.perf_counter()
         r = search(spec, stock=stock, top=spec.search.top, time_limit=limit)
         t = time.perf_counter() - t0

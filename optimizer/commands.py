@@ -249,6 +249,10 @@ def cmd_design(args) -> int:
             names = sorted(Path(w).name for w in writer.written)
             shown = ", ".join(names[:6]) + (", …" if len(names) > 6 else "")
             _say(args, f"\nwrote {len(names)} file{'s' if len(names) != 1 else ''} to {out_dir}/ ({shown})")
+        if result.designs:
+            from .outputs.cautions import cautions_line
+
+            _say(args, "\n" + cautions_line("report.html" if writer is not None else "the README"))
     return EXIT_OK if result.designs else EXIT_UNMET
 
 

@@ -7,7 +7,7 @@ rules and to people licensed for the work.
 
 from __future__ import annotations
 
-__all__ = ["CAUTIONS", "cautions_text"]
+__all__ = ["CAUTIONS", "cautions_line", "cautions_text"]
 
 #: (topic, caution) pairs, in the order a builder meets them.
 CAUTIONS: tuple[tuple[str, str], ...] = (
@@ -43,3 +43,11 @@ CAUTIONS: tuple[tuple[str, str], ...] = (
 def cautions_text() -> str:
     """The cautions as plain text, one paragraph each."""
     return "\n\n".join(f"{topic}: {text}" for topic, text in CAUTIONS) + "\n"
+
+
+def cautions_line(where: str = "report.html") -> str:
+    """The cautions in two lines for the terminal (``where`` has them in full)."""
+    return ("Before you build: " + "; ".join(t.lower() for t, _ in CAUTIONS[:-1])
+            + f" — see the cautions in {where}.\n"
+            "They are general habits: follow your local electrical codes and leave anything beyond a "
+            "battery- or adapter-powered low-voltage stage to licensed practice.")
