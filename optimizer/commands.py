@@ -256,6 +256,18 @@ def cmd_design(args) -> int:
     return EXIT_OK if result.designs else EXIT_UNMET
 
 
+def _near_miss_text(v) -> str:
+    """Which targets the closest verified design missed, and by how much (for compare)."""
+    from .spec.quantities import format_si
+
+    def value(t):
+        return f"{t.worst:.2f} {t.unit}" if t.unit in ("dB", "%") else format_si(t.worst, t.unit)
+
+    missed = sorted((t for t in v.targets if not t.passed), key=lambda t: t.margin)
+    return (f"the closest design found (margin {v.margin:+.3f}) misses "
+            + "; ".join(f"{t.name}: {value(t)} at its worst corner, asked {t.limit}" for t in missed))
+
+
 def cmd_compare(args) -> int:
     """The same spec designed at several nominal supplies, side by side."""
     import csv
@@ -309,7 +321,10 @@ def cmd_compare(args) -> int:
                 "design": design_entry(1, best),
             })
         else:
-            row.update({"margin": None, "why": [c.text for c in r.conflicts] or list(r.notes)})
+            why = [c.text for c in r.conflicts] or list(r.notes)
+            if not r.conflicts and r.near_misses:
+                why.append(_near_miss_text(r.near_misses[0]))
+            row.update({"margin": None, "why": why})
         rows.append(row)
     out_dir = Path(args.out) if args.out else Path("outputs") / f"{spec.name}-compare"
     from .outputs.files import OutputDir
