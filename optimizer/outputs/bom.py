@@ -167,6 +167,45 @@ def _stock_item(stock, it):
     return None
 
 
+#: Positions whose β matters most, first, with why (topologies not named: designator order).
+HFE_PRIORITY = {
+    "follower-ce": (("Q1", "the input buffer: its β sets the input impedance"),),
+    "ce-follower": (("Q2", "the output buffer: its β sets how lightly it loads Q1's collector"),),
+}
+
+
+def hfe_assignment(topology: str, refs: list[str], beta: dict, pieces) -> dict[str, str]:
+    """Which measured piece goes where, as a BOM note per designator.
+
+    ``beta`` maps designators to the (nominal, min, max) β the design was verified over;
+    ``pieces`` are the drawer's measured hFE values, one per piece. The positions of
+    :data:`HFE_PRIORITY` take the highest pieces inside their verified range; the rest
+    take the highest left inside theirs. A position with no piece inside its range is
+    told so: the design was not verified with those pieces.
+    """
+    why = dict(HFE_PRIORITY.get(topology, ()))
+    order = [r for r in why if r in refs] + sorted((r for r in refs if r not in why), key=designator_key)
+    left = sorted((float(h) for h in pieces), reverse=True)
+    out = {}
+    for ref in order:
+        _, lo, hi = beta.get(ref, (0.0, 0.0, math.inf))
+        fit = [h for h in left if lo <= h <= hi]
+        outside = sorted({h for h in left if not lo <= h <= hi})
+        if fit:
+            h = fit[0]
+            left.remove(h)
+            text = f"fit the piece measured at hFE {h:.0f}"
+            text += f" (the highest left in range: {ref} is {why[ref]})" if ref in why else (
+                f" (inside the β range {lo:.0f}–{hi:.0f} the design was verified over)")
+        else:
+            text = (f"no measured piece lies inside the β range {lo:.0f}–{hi:.0f} the design was verified over:"
+                    f" buy one or re-check the design with the pieces' values")
+        if outside:
+            text += "; not verified with the pieces at hFE " + ", ".join(f"{h:.0f}" for h in outside)
+        out[ref] = f"{ref}: {text}"
+    return out
+
+
 def _transistor_rows(v, rating: dict, stock) -> list[dict]:
     """One BOM row per transistor (``rating["transistors"]``, else the circuit's), in
     designator order; all are of the design's one type."""
@@ -183,6 +222,8 @@ def _transistor_rows(v, rating: dict, stock) -> list[dict]:
     drawer = None
     if stock is not None:
         drawer = next((s for s in stock.items if s.kind == "transistor" and str(s.value) == d.transistor), None)
+    assigned = hfe_assignment(d.topology, [q.get("ref", "Q1") for q in qs], v.analysis.conditions.beta,
+                              drawer.hfe) if drawer is not None and drawer.hfe else {}
     rows = []
     for q in qs:
         ref = q.get("ref", "Q1")
@@ -207,6 +248,8 @@ def _transistor_rows(v, rating: dict, stock) -> list[dict]:
                          (f", {drawer.note}" if drawer.note else ""))
             if isinstance(drawer.quantity, (int, float)) and drawer.quantity < len(qs):
                 notes.append(f"the stage needs {len(qs)} of them")
+            if drawer.hfe and ref in assigned:
+                notes.append(assigned[ref])
         rows.append({"designators": ref, "refs": [ref], "code": d.transistor, "value": "", "si": None,
                      "kind": "transistor", "type": ttype, "tolerance": "", "rating": rating_text, "quantity": 1,
                      "source": source, "price": price, "orientation": orientation, "orientations": [],
