@@ -153,8 +153,20 @@ def cmd_check(args) -> int:
         mc = monte_carlo(design, an.circuit, an.conditions, args.monte_carlo, args.seed, spec, design.thd_limit)
         mc.pop("swing_samples", None)
         mc.pop("gain_samples", None)
+    sub = None
+    if args.transistor and spec is not None and targets is not None and not all(t.passed for t in targets):
+        from .outputs.bom import load_stock_for
+        from .search.substitute import fewest_changes
+
+        sub = fewest_changes(spec, design, args.transistor, load_stock_for(spec), seed=args.seed)
     if args.json:
-        print_json(analysis_json(an, rt, targets, mc))
+        data = analysis_json(an, rt, targets, mc)
+        if sub is not None:
+            data["substitute"] = {
+                "transistor": args.transistor, "found": sub.verified is not None,
+                "margin": sub.verified.margin if sub.verified is not None else None,
+                "changes": [{"ref": r, "from": a, "to": b} for r, a, b in sub.changed], "note": sub.note}
+        print_json(data)
     else:
         print(analysis_text(an, rt, targets))
         if mc:
@@ -168,8 +180,12 @@ def cmd_check(args) -> int:
             print()
             print("  meets every target" if not bad else f"  misses {len(bad)} target(s): " + ", ".join(t.name for t in bad))
     if targets is not None and not all(t.passed for t in targets):
-        if args.transistor and not args.json:
-            print("  (with this transistor the design would need new values: run stagefit design with it)")
+        if sub is not None and not args.json:
+            if sub.verified is not None:
+                print(f"\n  with {args.transistor} it meets the spec again (margin {sub.verified.margin:+.3f}, verified at"
+                      f" every corner) when these change: " + ", ".join(f"{r} {a} → {b}" for r, a, b in sub.changed))
+            else:
+                print(f"\n  {sub.note}")
         return EXIT_UNMET
     return EXIT_OK
 

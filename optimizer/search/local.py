@@ -66,6 +66,8 @@ SCREEN_HARMONICS = 10
 SAMPLES = 128
 #: Fresh starts of the evolution while no design has passed and time is left.
 PASSES = 4
+#: Share of a topology's time kept for trimming the capacitors of the designs found.
+TRIM_SHARE = 0.25
 #: Verified failures in a row after which the rest of a table is left.
 MISSES = 3
 ROUNDS = 14
@@ -344,6 +346,9 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
     failing), ``notes`` and ``stats``.
     """
     stats = {"solves": 0, "verified": 0, "screened": 0, "structures": 0, "passes": 0}
+    # A quarter of the time is kept for sizing the capacitors of what is found: the screen
+    # fits the largest candidates, which no builder wants to buy.
+    find_end = deadline - TRIM_SHARE * max(deadline - time.monotonic(), 0.0)
     rng = np.random.default_rng(seed)
     verified: list[Verified] = []
     failed: list[Verified] = []
@@ -359,12 +364,14 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
     stats["structures"] = len(work)
     # Passes: each a fresh evolution from new samples, while nothing has passed and time is left.
     for attempt in range(PASSES):
-        if verified or deadline - time.monotonic() < 2.0:
+        if not verified and find_end < deadline and find_end - time.monotonic() < 2.0:
+            find_end = deadline  # nothing found to trim: the kept time goes to one more pass
+        if verified or find_end - time.monotonic() < 2.0:
             break
         stats["passes"] = attempt + 1
         tables = []
         for w, sc in enumerate(work):
-            left = deadline - time.monotonic()
+            left = find_end - time.monotonic()
             if left <= 0:
                 break
             # Share what is left between the structures not yet searched, keeping a third for
@@ -391,14 +398,14 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
                 f" continuous {float(m[0]):+.3f}, best of {len(rows)} series neighbours {float(np.max(tm)):+.3f}")
         # Rows in order of the screened margin over every table: the solver picks among them.
         for sc, options, rows, tm in sorted(tables, key=lambda x: -float(np.max(x[3]))):
-            if time.monotonic() > deadline:
+            if time.monotonic() > find_end:
                 break
             cut: list[int] = []
             misses = 0
             for _ in range(8):
-                if time.monotonic() > deadline - 1.0:
+                if time.monotonic() > find_end - 1.0:
                     break
-                r = _solve_table(sc, options, rows, tm, cut, seed, max(min(2.0, deadline - time.monotonic()), 0.1), stats)
+                r = _solve_table(sc, options, rows, tm, cut, seed, max(min(2.0, find_end - time.monotonic()), 0.1), stats)
                 if r is None:
                     break
                 cut.append(r[0])

@@ -206,7 +206,18 @@ def search(
         # leaves its time to the rest).
         share = time.monotonic() + (deadline - time.monotonic()) * weights[n] / sum(weights[n:])
         if topology in RELAXATION_TOPOLOGIES:
-            results.append(_search_topology(spec, cands, top, share, seed, say, start))
+            # The relaxation encodes the NPN stage only; PNP types of the same topology go to
+            # the neighbourhood table model (a third of the time when both kinds are listed).
+            npn = [t for t in cands.transistors if t[1].polarity == "npn"]
+            pnp = [t for t in cands.transistors if t[1].polarity != "npn"]
+            if npn:
+                end = share if not pnp else time.monotonic() + (share - time.monotonic()) * 2 / 3
+                results.append(_search_topology(spec, replace(cands, transistors=npn), top, end, seed, say, start))
+            if pnp:
+                r = _search_local(spec, replace(cands, transistors=pnp), top, share, seed, say, start)
+                if npn:
+                    r.topology = f"{topology} (PNP)"
+                results.append(r)
         else:
             results.append(_search_local(spec, cands, top, share, seed, say, start))
     # Across topologies: the best designs of all, ranked together.
