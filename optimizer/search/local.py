@@ -487,34 +487,36 @@ def _solve_table(sc: _Screen, options, rows, tm, cut, seed, t, stats):
 def _trim(spec, cands: Candidates, designs: list[Verified], stats, deadline: float) -> list[Verified]:
     """The smallest common capacitor value (each capacitor's nearest candidate) that keeps
     each design's margin within TIE, found by bisection over the candidate values (a smaller
-    capacitor only raises the low corner); every step verified, none begun that would end
-    past the deadline."""
+    capacitor only raises the low corner). The designs are bisected side by side, each step
+    of all of them verified in one batch; no step is begun that would end past the deadline."""
     caps = [s for s in cands.slots if s.role.kind == "C"]
     common = sorted({it.value for s in caps for it in s.items if not it.absent})
-    out = []
+    state = []  # per design: [best, pick, fitted, vals, lo, hi, need]
     for d in designs:
         pick = d.choice.as_dict()
         fitted = [s for s in caps if not s.items[pick[s.key]].absent]
-        if not fitted:
-            out.append(d)
-            continue
-        current = max(s.items[pick[s.key]].value for s in fitted)
+        current = max((s.items[pick[s.key]].value for s in fitted), default=0.0)
         vals = [v for v in common if v < current]
-        best, lo, hi = d, 0, len(vals) - 1
-        need = max(d.margin - TIE, 0.0)
-        cost = 0.0
-        while lo <= hi and time.monotonic() + cost < deadline:
-            t0 = time.monotonic()
-            mid = (lo + hi) // 2
+        state.append([d, pick, fitted, vals, 0, len(vals) - 1 if fitted else -1, max(d.margin - TIE, 0.0)])
+    cost = 0.0
+    while time.monotonic() + cost < deadline:
+        live = [st for st in state if st[4] <= st[5]]
+        if not live:
+            break
+        t0 = time.monotonic()
+        choices = []
+        for best, pick, fitted, vals, lo, hi, _ in live:
             p2 = dict(pick)
             for s in fitted:
-                p2[s.key] = _index_of(s, vals[mid])
-            v = verify(spec, cands, [Choice.of(p2, d.choice.transistor)])[0]
-            stats["verified"] += 1
-            cost = max(cost, time.monotonic() - t0)
-            if v.margin >= need:
-                best, hi = v, mid - 1
+                p2[s.key] = _index_of(s, vals[(lo + hi) // 2])
+            choices.append(Choice.of(p2, best.choice.transistor))
+        checked = verify(spec, cands, choices)
+        stats["verified"] += len(checked)
+        cost = max(cost, time.monotonic() - t0)
+        for st, v in zip(live, checked):
+            mid = (st[4] + st[5]) // 2
+            if v.margin >= st[6]:
+                st[0], st[5] = v, mid - 1
             else:
-                lo = mid + 1
-        out.append(best)
-    return out
+                st[4] = mid + 1
+    return [st[0] for st in state]
