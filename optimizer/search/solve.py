@@ -290,14 +290,7 @@ def _search_local(spec: Spec, cands: Candidates, top: int, deadline: float, seed
 
     got = local_search(spec, cands, top, deadline, seed, say)
     designs = _distinct(rank(got["designs"]))[:top]
-    if designs and cands.stock is not None and time.monotonic() < deadline:
-        swapped = [_from_stock(cands, d.choice) for d in designs]
-        if any(ch != d.choice for ch, d in zip(swapped, designs)):
-            again = verify(spec, cands, swapped, large_signal=True)
-            designs = [a if a.margin >= 0 else d for a, d in zip(again, designs)]
-    if designs and designs[0].analysis.large == {}:
-        designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
-    designs = rank(designs)
+    designs = _finish(spec, cands, designs, stock_swap=time.monotonic() < deadline)
     status = "feasible" if designs else "unknown"
     notes = list(got["notes"])
     if not designs:
@@ -447,17 +440,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     if designs and left() > 1.3 * len(designs) * (2 * per_design + 1.0):
         designs = _trim_capacitors(spec, cands, designs, offsets, seed, left,
                                    lambda: 1.3 * len(designs) * per_design, stats)
-    if designs and cands.stock is not None:
-        # Stock first: a bought part whose value is in the drawer (with no wider tolerance)
-        # is taken from the drawer instead, as far as the quantities go.
-        swapped = [_from_stock(cands, d.choice) for d in designs]
-        if any(ch != d.choice for ch, d in zip(swapped, designs)):
-            again = verify(spec, cands, swapped, large_signal=True)
-            designs = [a if a.margin >= 0 else d for a, d in zip(again, designs)]
-    if designs and designs[0].analysis.large == {}:
-        # The figures a builder wants (swing, THD, clip limits) for the designs reported.
-        designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
-    designs = rank(designs)
+    designs = _finish(spec, cands, designs)
     if status == "feasible" and not designs:
         status = "unknown"
     notes = []
@@ -475,6 +458,21 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     res = SearchResult(status, designs, cands.topology, bound=bound, near_misses=sorted(failed, key=rank_key)[:3],
                        notes=notes, stats=stats, candidates=cands)
     return res
+
+
+def _finish(spec, cands: Candidates, designs: list[Verified], stock_swap: bool = True) -> list[Verified]:
+    """The reported designs, ranked: stock first, with their large-signal figures."""
+    if designs and cands.stock is not None and stock_swap:
+        # Stock first: a bought part whose value is in the drawer (with no wider tolerance)
+        # is taken from the drawer instead, as far as the quantities go.
+        swapped = [_from_stock(cands, d.choice) for d in designs]
+        if any(ch != d.choice for ch, d in zip(swapped, designs)):
+            again = verify(spec, cands, swapped, large_signal=True)
+            designs = [a if a.margin >= 0 else d for a, d in zip(again, designs)]
+    if designs and designs[0].analysis.large == {}:
+        # The figures a builder wants (swing, THD, clip limits) for the designs reported.
+        designs = verify(spec, cands, [d.choice for d in designs], large_signal=True)
+    return rank(designs)
 
 
 def _from_stock(cands: Candidates, ch: Choice) -> Choice:
