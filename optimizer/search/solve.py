@@ -331,11 +331,12 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     per_design = 0.0  # the longest verification seen, seconds per design
 
     def final_need() -> float:
-        # Time the end needs (with a third to spare): the polish (one solve and one
+        # Time the end needs (with a third to spare): the polish (a solve of up to 2 s and one
         # verification), the capacitor trim (a short solve and a verification per design)
-        # and re-verifying the reported designs with stock parts swapped in.
+        # and re-verifying the reported designs with stock parts swapped in. It must cover
+        # what the trim asks for below once the polish has run, or the trim is skipped.
         n = min(top, len(_passing(verified)))
-        return 1.3 * (per_design * (2 * n + 1) + (n + 1) * 1.0) if n else 0.0
+        return 1.3 * (per_design * (2 * n + 2) + (n + 1) * 1.0 + 2.0) if n else 0.0
 
     while (time.monotonic() < min(loop_end, deadline - final_need())
            and (best is None or time.monotonic() < polish_at)):
