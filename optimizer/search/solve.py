@@ -515,6 +515,10 @@ def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     return verify(spec, cands, [Choice.of(pick, tr)])[0]
 
 
+#: Deterministic time (the solver's own unit, about a second) of each capacitor-trim solve.
+TRIM_DET_TIME = 1.0
+
+
 def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stats) -> list[Verified]:
     """The smallest capacitors (and fewest BOM lines) that keep each design's margin.
 
@@ -536,8 +540,10 @@ def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stat
         _parts, lines, bought, capsize, _tie = sm.simplicity()
         sm.m.minimize(lines * 10**6 + bought * 10**4 + capsize)
         sm.hint(d.choice)
+        # A fixed deterministic-time budget (the same answer on a busy machine), under a
+        # wall-clock limit that only a nearly spent time limit makes bind.
         t = max(min(2.0, (left() - final_need()) / (2 * len(designs))), 0.1)
-        solver = _solver(seed, t, t)
+        solver = _solver(seed, TRIM_DET_TIME, max(t, TRIM_DET_TIME))
         st = solver.solve(sm.m)
         stats["solves"] += 1
         if st in (cp_model.OPTIMAL, cp_model.FEASIBLE):
