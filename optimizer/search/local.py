@@ -10,11 +10,12 @@ and with the same verifier:
    serves is.
 2. **Quick screen.** A batch of designs is analysed at the nominal point and every global
    corner (β, supply, temperature) without part tolerances: operating point of every
-   transistor, 1 kHz gain and impedances, supply current, and the quasi-static clip limits
-   at the lowest supply as an estimate of the swing. Capacitors are at their largest
-   candidate, so they do not limit the mid-band. The screen's figures go through the same
-   :func:`~optimizer.analysis.targets.judge` as the full analysis; only the −3 dB corners
-   and the distortion are left to the verifier.
+   transistor, 1 kHz gain and impedances, supply current, and for the best rows an estimate
+   of the swing at the lowest supply: the smaller of 0.8 × the quasi-static clip limit and
+   the swing at the THD limit (harmonic balance with fewer harmonics). Capacitors are at
+   their largest candidate up to ``AMPLE``, so they do not limit the mid-band. The screen's
+   figures go through the same :func:`~optimizer.analysis.targets.judge` as the full
+   analysis; only the −3 dB corners and the part tolerances are left to the verifier.
 3. **Continuous start.** Seeded log-uniform samples of the resistors over their candidate
    ranges, then a few rounds of shrinking perturbations around the best (all batched).
 4. **Neighbourhood table.** Around the best few continuous designs, each resistor may take
@@ -25,8 +26,10 @@ and with the same verifier:
    margin, then fewest BOM lines, then fewest parts to buy.
 5. **Verification.** The model's best rows are analysed in full at every corner with every
    tolerance and the large-signal figures, the capacitors are then trimmed (the smallest
-   common value that keeps the margin), and every reported design has passed the verifier.
-   A row the verifier rejects is cut from the model, and the model is asked again.
+   common value that keeps the margin; a quarter of the time is kept for it), and every
+   reported design has passed the verifier. A row the verifier rejects is cut from the
+   model, and the model is asked again; after a few misses in a row, or when a table is
+   spent, a fresh pass starts from new samples (up to ``PASSES``).
 
 The neighbourhood is not the whole space, so nothing here is proved optimal: a topology
 searched this way reports ``feasible`` (designs found) or ``unknown`` (none found in time).

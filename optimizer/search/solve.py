@@ -256,8 +256,8 @@ HOPELESS = 0.7
 LOCAL_TOPOLOGIES = 2
 
 
-def _share_out(spec, all_cands, seed, say) -> tuple[list[str], list[str]]:
-    """Order the topologies for the search and leave out the hopeless ones (a quick look)."""
+def _share_out(spec, all_cands, seed, say) -> tuple[list[str], list[str], dict[str, float]]:
+    """The topologies to search, notes on those left out, and each one's quick-look score."""
     from .local import triage
 
     score = {}
