@@ -360,7 +360,7 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
     """
     stats = {"solves": 0, "verified": 0, "screened": 0, "structures": 0, "passes": 0}
     # A quarter of the time is kept for sizing the capacitors of what is found: the screen
-    # fits the largest candidates, which no builder wants to buy.
+    # fits large ones (up to AMPLE), bigger than a builder needs.
     find_end = deadline - TRIM_SHARE * max(deadline - time.monotonic(), 0.0)
     v_cost = 0.0  # the longest verification so far (s): none is begun that would end past find_end
     rng = np.random.default_rng(seed)
