@@ -274,14 +274,11 @@ def cmd_design(args) -> int:
 
 def _near_miss_text(v) -> str:
     """Which targets the closest verified design missed, and by how much (for compare)."""
-    from .spec.quantities import format_si
-
-    def value(t):
-        return f"{t.worst:.2f} {t.unit}" if t.unit in ("dB", "%") else format_si(t.worst, t.unit)
+    from .outputs.figures_json import worst_text
 
     missed = sorted((t for t in v.targets if not t.passed), key=lambda t: t.margin)
     return (f"the closest design found (margin {v.margin:+.3f}) misses "
-            + "; ".join(f"{t.name}: {value(t)} at its worst corner, asked {t.limit}" for t in missed))
+            + "; ".join(f"{t.name}: {worst_text(t)} at its worst corner, asked {t.limit}" for t in missed))
 
 
 def cmd_compare(args) -> int:
@@ -308,7 +305,7 @@ def cmd_compare(args) -> int:
             raise FileProblems([Problem("command line", 0, "--supply", f"{text!r} is out of range (allowed: 1.5 V to 48 V)")])
         supplies.append(v)
     say = _progress(args)
-    rows, entries = [], []
+    rows = []
     for v in supplies:
         sp = replace(spec, supply=spec.supply.scaled(v))
         if say:

@@ -154,6 +154,11 @@ def _db(x):
     return f"{x:+.2f} dB"
 
 
+def worst_text(t) -> str:
+    """A target result's worst value with its unit, as the tables show it."""
+    return format_si(t.worst, t.unit) if t.unit not in ("dB", "%") else f"{t.worst:.2f} {t.unit}"
+
+
 def mixing_of(an) -> dict | None:
     """The mixing figures (:func:`optimizer.analysis.mixing.mixing`) of a stage with several
     inputs or a level control, at nominal conditions; None for one input without a control."""
@@ -239,6 +244,6 @@ def analysis_text(an, ratings: dict | None = None, targets=None) -> str:
         L.append("  target                 limit                          worst        margin")
         for t in targets:
             mark = "pass" if t.passed else "FAIL"
-            val = format_si(t.worst, t.unit) if t.unit not in ("dB", "%") else f"{t.worst:.2f} {t.unit}"
+            val = worst_text(t)
             L.append(f"  {t.name:<22} {t.limit:<30} {val:>12}  {t.margin:+.3f}  {mark}")
     return "\n".join(L)

@@ -53,7 +53,7 @@ from ..analysis.targets import design_margin, judge
 from ..circuit.build import build_circuit
 from ..errors import ConvergenceError
 from .candidates import Candidates, RoleSlot
-from .verify import Choice, Verified, design_of, verify
+from .verify import Choice, Verified, design_of, needs_large_signal, verify
 
 __all__ = ["local_search", "structures", "triage"]
 
@@ -173,8 +173,7 @@ class _Screen:
         same = [g for g in cond.globals()
                 if len({b == cond.beta[q][1] for q, b in g["beta"].items()}) <= 1]
         self.points = [nom] + same
-        self.need_swing = (spec.targets.required_swing() is not None
-                           or any(i.max_level is not None for i in spec.inputs))
+        self.need_swing = needs_large_signal(spec)
         self.vmin = cond.supply[1]
 
     def lo_hi(self, s: RoleSlot) -> tuple[float, float]:
@@ -221,11 +220,7 @@ class _Screen:
         pts = [self.points[j] for j in range(P)] * B
         batch = Batch(B * P, np.array([p["supply"] for p in pts]), np.array([p["temperature"] for p in pts]))
         for j, s in enumerate(self.core):
-            ref = self.ref[s.key]
-            if s.role.kind == "POT":
-                batch.values[ref] = X[rep, j]
-            else:
-                batch.values[ref] = X[rep, j]
+            batch.values[self.ref[s.key]] = X[rep, j]
         for q in self.points[0]["beta"]:
             batch.beta[q] = np.array([p["beta"][q] for p in pts])
         op = self.net.operating_point(batch)
@@ -278,11 +273,19 @@ class _Screen:
         return res
 
 
+def _log_box(sc: "_Screen") -> tuple[np.ndarray, np.ndarray]:
+    """The log of each core part's smallest and largest candidate."""
+    return (np.log([sc.lo_hi(s)[0] for s in sc.core]), np.log([sc.lo_hi(s)[1] for s in sc.core]))
+
+
+def _log_uniform(sc: "_Screen", rng: np.random.Generator, samples: int) -> np.ndarray:
+    """Seeded log-uniform samples (log values) of the core parts over their candidate ranges."""
+    lo, hi = _log_box(sc)
+    return lo + (hi - lo) * rng.random((samples, len(sc.core)))
+
+
 def _quick(sc: "_Screen", rng: np.random.Generator, samples: int) -> float:
-    lo = np.log([sc.lo_hi(s)[0] for s in sc.core])
-    hi = np.log([sc.lo_hi(s)[1] for s in sc.core])
-    Z = lo + (hi - lo) * rng.random((samples, len(sc.core)))
-    return float(np.max(sc.margins(np.exp(Z), swing=False)))
+    return float(np.max(sc.margins(np.exp(_log_uniform(sc, rng, samples)), swing=False)))
 
 
 def triage(spec, cands: Candidates, seed: int, samples: int = 96) -> float:
@@ -298,9 +301,8 @@ def _continuous(sc: _Screen, rng: np.random.Generator, deadline: float) -> tuple
     """Seeded log-uniform samples, then an elitist evolution strategy on the log values:
     each round the best ``PARENTS`` designs so far get ``CHILDREN`` perturbed copies each,
     with a spread that shrinks round by round (all of a round screened in one batch)."""
-    lo = np.log([sc.lo_hi(s)[0] for s in sc.core])
-    hi = np.log([sc.lo_hi(s)[1] for s in sc.core])
-    Z = lo + (hi - lo) * rng.random((SAMPLES, len(sc.core)))
+    lo, hi = _log_box(sc)
+    Z = _log_uniform(sc, rng, SAMPLES)
     allZ, allm = [Z], [sc.margins(np.exp(Z), keep=12)]
     sigma = 0.6
     for _ in range(ROUNDS):
@@ -346,10 +348,6 @@ def _table(sc: _Screen, centres: np.ndarray) -> tuple[list[list[int]], list[tupl
     m = sc.margins(X)
     options = [sorted({r[j] for r in rows_l}) for j in range(len(sc.core))]
     return options, rows_l, m
-
-
-def _stock_items(cands: Candidates, s: RoleSlot, value: float) -> list[int]:
-    return [i for i, it in enumerate(s.items) if it.source == "stock" and it.value == value]
 
 
 def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, say) -> dict:

@@ -34,7 +34,7 @@ from ..spec.specfile import Spec
 from ..spec.stockfile import Stock
 from .candidates import Candidates, build_candidates
 from .model import S, StageModel
-from .verify import Choice, Verified, verify
+from .verify import Choice, Verified, needs_large_signal, verify
 
 __all__ = ["SearchResult", "search", "TIE", "rank", "rank_key"]
 
@@ -325,7 +325,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     best_proved = topk_proved = False
     chunk = max(2.0, (deadline - time.monotonic()) / 8)
     # Keep back time for the polish and for the large-signal figures of the reported designs.
-    reserve = 0.15 * (deadline - time.monotonic()) + (2.0 * top if _needs_large(spec) is False else 0.5 * top)
+    reserve = 0.15 * (deadline - time.monotonic()) + (2.0 * top if not needs_large_signal(spec) else 0.5 * top)
     polish_at = deadline - 0.2 * (deadline - time.monotonic())
     loop_end = deadline - reserve
     per_design = 0.0  # the longest verification seen, seconds per design
@@ -419,12 +419,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
                 core_cuts.append(ch)
         # How optimistic the model was, from the proposal it liked best.
         (u, ch), v = proposals[0], checked[0]
-        t_m = math.log(u / S)
-        for tr in v.targets:
-            name = "headroom" if tr.name.startswith("overload") else _MODEL_TARGET.get(tr.name, tr.name)
-            # A target that missed the margin asked for: the model was too optimistic about it.
-            if name in _MODEL_TARGETS and tr.margin < floor:
-                offsets[name] = min(offsets.get(name, 0.0) + max(0.7 * (t_m - tr.margin), 2 * TIE), 1.0)
+        learn_offsets(offsets, v, math.log(u / S), floor)
         v = max(checked, key=lambda x: x.margin)
         hint = ch
         best = max((v.margin for v in _passing(verified)), default=None)
@@ -461,6 +456,16 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     return res
 
 
+def learn_offsets(offsets: dict[str, float], v: Verified, t_m: float, floor: float) -> None:
+    """Raise ``offsets`` (per model target) for each target the verified design ``v`` missed
+    the margin ``floor`` on, by how far the model's margin ``t_m`` (nepers) overshot it."""
+    for tr in v.targets:
+        name = "headroom" if tr.name.startswith("overload") else _MODEL_TARGET.get(tr.name, tr.name)
+        # A target that missed the margin asked for: the model was too optimistic about it.
+        if name in _MODEL_TARGETS and tr.margin < floor:
+            offsets[name] = min(offsets.get(name, 0.0) + max(0.7 * (t_m - tr.margin), 2 * TIE), 1.0)
+
+
 def _finish(spec, cands: Candidates, designs: list[Verified], stock_swap: bool = True) -> list[Verified]:
     """The reported designs, ranked: stock first, with their large-signal figures."""
     if designs and cands.stock is not None and stock_swap:
@@ -495,10 +500,6 @@ def _from_stock(cands: Candidates, ch: Choice) -> Choice:
                 used[alt.stock_line] = used.get(alt.stock_line, 0) + 1
                 break
     return Choice.of(pick, ch.transistor)
-
-
-def _needs_large(spec) -> bool:
-    return spec.targets.required_swing() is not None or any(i.max_level is not None for i in spec.inputs)
 
 
 def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:

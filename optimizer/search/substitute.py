@@ -18,7 +18,7 @@ from ortools.sat.python import cp_model
 
 from .candidates import build_candidates
 from .model import S
-from .solve import _MODEL_TARGET, _MODEL_TARGETS, RELAXATION_TOPOLOGIES, TIE, _model, _solver
+from .solve import RELAXATION_TOPOLOGIES, _model, _solver, learn_offsets
 from .verify import Choice, Verified, verify
 
 __all__ = ["Changes", "fewest_changes"]
@@ -95,10 +95,5 @@ def fewest_changes(spec, design, transistor: str, stock=None, time_limit: float 
                     changed.append(((a or b).ref, _code(a) if a else "—", _code(b) if b else "—"))
             return Changes(v, changed)
         # The model was too optimistic about the targets the analysis found missed.
-        u = solver.value(sm.u.expr)
-        t_m = math.log(max(u, 1) / S)
-        for t in v.targets:
-            name = "headroom" if t.name.startswith("overload") else _MODEL_TARGET.get(t.name, t.name)
-            if name in _MODEL_TARGETS and t.margin < floor:
-                offsets[name] = min(offsets.get(name, 0.0) + max(0.7 * (t_m - t.margin), 2 * TIE), 1.0)
+        learn_offsets(offsets, v, math.log(max(solver.value(sm.u.expr), 1) / S), floor)
     return Changes(None, [], f"no design with {transistor} met the spec within {time_limit:g} s of search")

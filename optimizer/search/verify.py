@@ -11,7 +11,7 @@ from ..spec.designfile import Design
 from ..spec.specfile import Spec
 from .candidates import Candidates, Item
 
-__all__ = ["Choice", "Verified", "design_of", "verify"]
+__all__ = ["Choice", "Verified", "design_of", "needs_large_signal", "verify"]
 
 
 @dataclass(frozen=True)
@@ -90,6 +90,12 @@ def design_of(spec: Spec, cands: Candidates, choice: Choice) -> tuple[Design, di
     return design, {ref: it for ref, _, _, it in placed}
 
 
+def needs_large_signal(spec) -> bool:
+    """Does a target need the large-signal figures (headroom, swing, distortion, an input's
+    largest level)?"""
+    return spec.targets.required_swing() is not None or any(i.max_level is not None for i in spec.inputs)
+
+
 def verify(spec: Spec, cands: Candidates, choices: list[Choice], large_signal: bool | None = None) -> list[Verified]:
     """Analyse every choice at every corner (designs of one structure share a batch).
 
@@ -97,8 +103,7 @@ def verify(spec: Spec, cands: Candidates, choices: list[Choice], large_signal: b
     swing, distortion, an input's largest level) or when ``large_signal`` asks.
     """
     if large_signal is None:
-        t = spec.targets
-        large_signal = t.required_swing() is not None or any(i.max_level is not None for i in spec.inputs)
+        large_signal = needs_large_signal(spec)
     built = [(c, *design_of(spec, cands, c)) for c in choices]
     groups: dict[tuple, list[int]] = {}
     for i, (c, d, _) in enumerate(built):
