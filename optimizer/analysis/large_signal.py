@@ -295,6 +295,13 @@ def harmonic_balance(net: Network, op: OperatingPoint, drive_input: int, amplitu
     return hb.result(amp, u, conv)
 
 
+#: The largest factor the signal part of a starting waveform is scaled by (see :func:`_search`).
+PREDICT_MAX = 4.0
+#: The most a drive amplitude grows in one step near the target while it is not yet
+#: bracketed (see :func:`_search`).
+GROW_MAX = 2.0
+
+
 def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
     """Find drive amplitudes where target_fn(result) = 1 (monotone in amplitude), per variant.
 
@@ -306,26 +313,39 @@ def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
     u = hb.dc_start()
     lo = np.zeros(B)
     lo_val = np.full(B, -np.inf)
+    lo_raw = np.full(B, -np.inf)  # lo_val before any Illinois halving
+    lo2, lo2_val = np.zeros(B), np.full(B, -np.inf)  # the point below before lo
+    side = np.zeros(B, dtype=int)  # which end the last step replaced: 1 lo, −1 hi
     hi = np.full(B, np.inf)
     hi_val = np.full(B, np.inf)
     done = np.zeros(B, dtype=bool)
     last = None
     u_lo = u.copy()
+    u_dc = u.copy()
     for _ in range(max_steps):
+        # Start from the last solution below the target with its signal part scaled to the
+        # new amplitude (the waveform grows about in proportion; Newton corrects the rest).
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(lo > 0, np.minimum(amp / np.where(lo > 0, lo, 1.0), PREDICT_MAX), 1.0)
+        u_start = u_dc + (u_lo - u_dc) * ratio[:, None, None]
         if done.any():  # only the variants still searching are solved again
             act = np.nonzero(~done)[0]
             u_try, conv = u_lo.copy(), np.zeros(B, dtype=bool)
-            u_try[act], conv[act] = hb.sub(act).solve(amp[act], u_lo[act])
+            u_try[act], conv[act] = hb.sub(act).solve(amp[act], u_start[act])
         else:
-            u_try, conv = hb.solve(amp, u_lo)
+            u_try, conv = hb.solve(amp, u_start)
         res = hb.result(amp, u_try, conv)
         was_done = done.copy()
         val = np.log(np.maximum(target_fn(res), 1e-300))  # 0 at the target
         ok = conv & np.isfinite(val)
         below = ok & (val < 0)
         above = (~ok) | (val >= 0)
-        lo = np.where(below & ~done, amp, lo)
-        lo_val = np.where(below & ~done, val, lo_val)
+        new_lo = below & ~done
+        lo2 = np.where(new_lo, lo, lo2)
+        lo2_val = np.where(new_lo, lo_raw, lo2_val)
+        lo = np.where(new_lo, amp, lo)
+        lo_val = np.where(new_lo, val, lo_val)
+        lo_raw = np.where(new_lo, val, lo_raw)
         u_lo = np.where((below & ~done)[:, None, None], u_try, u_lo)
         hi = np.where(above & ~done, amp, hi)
         hi_val = np.where(above & ~done & ok, val, np.where(above & ~done, np.inf, hi_val))
@@ -333,12 +353,25 @@ def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
         last = res if last is None else _merge(last, res, ~was_done)
         if done.all():
             break
+        # Illinois: an end kept for the second time in a row has its value halved, so the
+        # secant does not creep up on the target from one side.
+        kept_hi = below & ~was_done & (side == 1)
+        kept_lo = above & ~was_done & (side == -1)
+        hi_val = np.where(kept_hi & np.isfinite(hi_val), 0.5 * hi_val, hi_val)
+        lo_val = np.where(kept_lo & np.isfinite(lo_val), 0.5 * lo_val, lo_val)
+        side = np.where(was_done, side, np.where(below, 1, -1))
         # Next amplitude: grow (or shrink) until bracketed, then secant in log-log (bisection
-        # fallback).
+        # fallback). Growth extrapolates the last two points below the target in log-log
+        # (slope at least 1), by at most GROW_MAX once within a factor of 10 of the target
+        # (twice that further away): a stage driven far past its clip point needs many
+        # Newton steps, so overshooting costs more than one more step.
         grow = np.isinf(hi)
         shrink = ~grow & (lo <= 0)
-        with np.errstate(over="ignore", invalid="ignore"):
-            step_up = amp * np.clip(np.exp(-val), 1.2, 4.0)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            slope = np.where((lo2 > 0) & (lo > lo2) & np.isfinite(lo2_val),
+                             (lo_raw - lo2_val) / np.log(np.maximum(lo, 1e-300) / np.where(lo2 > 0, lo2, 1.0)), 1.0)
+            slope = np.maximum(np.nan_to_num(slope, nan=1.0, posinf=1.0, neginf=1.0), 1.0)
+            step_up = amp * np.clip(np.exp(-val / slope), 1.2, np.where(val < -np.log(10.0), 2 * GROW_MAX, GROW_MAX))
             step_down = amp / np.clip(np.where(ok, np.exp(val), 4.0), 1.2, 4.0)
         with np.errstate(invalid="ignore", divide="ignore"):
             la, lb = np.log(np.maximum(lo, 1e-300)), np.log(np.where(np.isinf(hi), 1.0, hi))
