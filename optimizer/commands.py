@@ -257,8 +257,9 @@ def cmd_design(args) -> int:
         _say(args, f"{spec.name}: {result.status}" + (f" — {len(result.designs)} design(s)" if result.designs else ""))
         if result.designs:
             print(ranked_table(result, spec))
-        for c in result.conflicts:
-            print("  " + c.text)
+        if not result.designs:  # with designs, the notes say why another topology could not
+            for c in result.conflicts:
+                print("  " + c.text)
         for n in result.notes:
             _say(args, "  " + n)
         if writer is not None and writer.written:

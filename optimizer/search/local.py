@@ -168,11 +168,11 @@ class _Screen:
         self.ref = {(p.role, p.input): p.ref for p in self.design.parts}
         cond = conditions_of(self.design, self.circuit)
         nom = {"supply": cond.supply[0], "temperature": cond.ambient[0], "beta": {k: v[0] for k, v in cond.beta.items()}}
-        # Every transistor at the same end of its beta range (the screen's corners; the
-        # verifier takes each one's ends on its own).
-        same = [g for g in cond.globals()
-                if len({b == cond.beta[q][1] for q, b in g["beta"].items()}) <= 1]
-        self.points = [nom] + same
+        # Every global corner, each transistor's beta at either end on its own as the
+        # verifier takes them: a gain stage at its highest beta behind a buffer at its
+        # lowest is where a two-transistor stage saturates (the screen once skipped those
+        # and sent designs to the verifier that missed at once).
+        self.points = [nom] + list(cond.globals())
         self.need_swing = needs_large_signal(spec)
         self.vmin = cond.supply[1]
 

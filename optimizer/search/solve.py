@@ -241,7 +241,7 @@ def search(
         merged.notes += [n if n.startswith(r.topology + ":") else f"{r.topology}: {n}" for n in r.notes]
         if r.status == "infeasible":
             merged.notes.append(f"{r.topology}: no design can meet every target"
-                                + (" (" + "; ".join(c.text for c in r.conflicts[:2]) + ")" if r.conflicts else ""))
+                                + (": " + " — or — ".join(c.text for c in r.conflicts[:2]) if r.conflicts else ""))
     merged.notes += skipped
     merged.stats = {r.topology: {"status": r.status, **r.stats} for r in results}
     if designs:
