@@ -28,7 +28,7 @@ from optimizer.analysis import linalg
 from optimizer.analysis.evaluate import analyse
 from optimizer.analysis.large_signal import swing_at_thd
 from optimizer.analysis.montecarlo import monte_carlo
-from optimizer.analysis.network import Batch, Network, _stamp
+from optimizer.analysis.network import Batch, Network
 from optimizer.spec.designfile import load_design
 from test_topologies_vs_ngspice import DESIGNS as TOPOLOGY_DESIGNS
 from test_vs_ngspice import DESIGNS as DIVIDER_DESIGNS
@@ -116,16 +116,7 @@ def test_corners_from_the_poles_equal_the_direct_search(designs, name):
     ref = np.abs(fig.midband(net, op, small).gain)
     lo, hi = fig.cutoffs(net, op, small, ref=ref)
     # The direct search: the whole network solved at every grid point and every step.
-
-    class Direct:
-        def grid(self, f):
-            return fig._gains(net, op, small, f)
-
-        def own(self, f):
-            g = fig._gains(net, op, small, f.T)
-            return np.stack([g[k, :, k] for k in range(f.shape[0])])
-
-    lo0, hi0 = fig._corners(Direct(), ref, 30)
+    lo0, hi0 = fig._corners(fig._Direct(net, op, small), ref, 30)
     assert _same_corners(lo, lo0).all(), f"{name}: low corners differ, worst {np.nanmax(np.abs(lo / lo0 - 1)):.2e}"
     assert _same_corners(hi, hi0).all(), f"{name}: high corners differ, worst {np.nanmax(np.abs(hi / hi0 - 1)):.2e}"
 

@@ -173,6 +173,20 @@ class _PoleForm:
         return np.abs(self.h0 - (s * self._sum(s))[:, :, 0])
 
 
+class _Direct:
+    """|gain| by the direct solve of Y(s), with the evaluator interface of :func:`_corners`."""
+
+    def __init__(self, net, op, small):
+        self.net, self.op, self.small = net, op, small
+
+    def grid(self, freqs):
+        return _gains(self.net, self.op, self.small, freqs)
+
+    def own(self, f):
+        g = _gains(self.net, self.op, self.small, f.T)
+        return np.stack([g[k, :, k] for k in range(f.shape[0])])
+
+
 def _gains(net: Network, op: OperatingPoint, small, freqs) -> np.ndarray:
     """|gain| (n_in, B, F) at frequencies (F,) or (B, F), by the direct solve of Y(s).
 
@@ -217,6 +231,10 @@ def cutoffs(net: Network, op: OperatingPoint, small=None, ref=None, steps: int =
     if ref is None:
         ref = np.abs(midband(net, op, small).gain)
     small = small if small is not None else net.small_signal(op)
+    jacks = {net.index[f"in{k + 1}"] for k in range(net.circuit.n_inputs)}
+    if any(a in jacks or b in jacks for a, b in net.cpairs):
+        # A capacitor on a source's EMF node: the Woodbury form leaves its drive out.
+        return _corners(_Direct(net, op, small), ref, steps)
     resp = Response(net, op, small)
     poles = resp.poles()
     if poles is None:
