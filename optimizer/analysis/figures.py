@@ -132,10 +132,16 @@ class Response:
 
     def own(self, f: np.ndarray) -> np.ndarray:
         """|gain| (n, B) of input k at its own frequency f[k] (n, B)."""
-        g = self.exact(f.T)  # (n, B, n): every input at the frequencies of every input
-        return np.stack([g[k, :, k] for k in range(f.shape[0])])
+        return _own(self.exact, f)
 
     grid = exact
+
+
+def _own(grid, f: np.ndarray) -> np.ndarray:
+    """Input k at its own frequency f[k] (n, B), from a ``grid`` evaluator taking (B, F)
+    frequencies: every input at every input's frequency, then the diagonal."""
+    g = grid(f.T)  # (n, B, n)
+    return np.stack([g[k, :, k] for k in range(f.shape[0])])
 
 
 class _PoleForm:
@@ -162,11 +168,6 @@ class _PoleForm:
         s = 2j * np.pi * np.asarray(freqs, dtype=float)[None, None, :]
         return np.abs(self.h0[:, :, None] - s * self._sum(s))
 
-    def grid_each(self, f: np.ndarray) -> np.ndarray:
-        """(n, B): every input at one frequency per design, f (B,)."""
-        s = 2j * np.pi * np.asarray(f, dtype=float)[None, :, None]
-        return np.abs(self.h0 - (s * self._sum(s))[:, :, 0])
-
     def own(self, f: np.ndarray) -> np.ndarray:
         """(n, B): input k at its own frequency f[k] (n, B)."""
         s = 2j * np.pi * f[:, :, None]
@@ -183,8 +184,7 @@ class _Direct:
         return _gains(self.net, self.op, self.small, freqs)
 
     def own(self, f):
-        g = _gains(self.net, self.op, self.small, f.T)
-        return np.stack([g[k, :, k] for k in range(f.shape[0])])
+        return _own(self.grid, f)
 
 
 def _gains(net: Network, op: OperatingPoint, small, freqs) -> np.ndarray:
@@ -247,7 +247,8 @@ def cutoffs(net: Network, op: OperatingPoint, small=None, ref=None, steps: int =
     bad = np.any(np.abs(poles.grid([F_MID])[:, :, 0] / ref - 1.0) > CHECK_TOL, axis=0)
     for f in (f_lo, f_hi):
         exact = resp.exact(f[:, None])[:, :, 0]
-        bad |= np.any(np.abs(poles.grid_each(f) / np.maximum(exact, 1e-300) - 1.0) > CHECK_TOL, axis=0)
+        each = poles.own(np.broadcast_to(f, ref.shape))  # every input at the one frequency
+        bad |= np.any(np.abs(each / np.maximum(exact, 1e-300) - 1.0) > CHECK_TOL, axis=0)
     if bad.any():
         idx = np.nonzero(bad)[0]
         lo_b, hi_b = _corners(resp.take(idx), ref[:, idx], steps)

@@ -346,7 +346,7 @@ def _search(hb: _HB, target_fn, amp0, max_steps=40, rel=2e-3):
         lo = np.where(new_lo, amp, lo)
         lo_val = np.where(new_lo, val, lo_val)
         lo_raw = np.where(new_lo, val, lo_raw)
-        u_lo = np.where((below & ~done)[:, None, None], u_try, u_lo)
+        u_lo = np.where(new_lo[:, None, None], u_try, u_lo)
         hi = np.where(above & ~done, amp, hi)
         hi_val = np.where(above & ~done & ok, val, np.where(above & ~done, np.inf, hi_val))
         done |= ok & (np.abs(val) < rel)

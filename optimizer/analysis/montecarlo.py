@@ -31,7 +31,7 @@ __all__ = ["MC_HARMONICS", "WORKERS", "monte_carlo"]
 
 #: Harmonics of the large-signal solution in the Monte Carlo. Ten cover the nine the THD
 #: counts; on the benchmark design's 200 samples the swing came within 0.4 % of the
-#: 20-harmonic figure (tests/test_montecarlo.py checks it stays within 1 %).
+#: 20-harmonic figure (tests/test_fast_paths.py checks it stays within 1 %).
 MC_HARMONICS = 10
 #: Threads the Monte Carlo runs on.
 WORKERS = max(1, min(4, os.cpu_count() or 1))
