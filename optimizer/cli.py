@@ -67,7 +67,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--spec", help="spec to judge the design against (pass/fail per target)")
     p.add_argument("--transistor", help="check the design with another transistor type instead")
     p.add_argument("--monte-carlo", type=int, default=0, metavar="N", help="also run N Monte Carlo samples")
-    p.add_argument("--seed", type=int, default=1, help="seed of the Monte Carlo generator (default 1)")
+    p.add_argument("--seed", type=int, default=1, help="seed of the Monte Carlo generator and the search (default 1)")
+    p.add_argument("--time-limit", type=float, default=60.0, metavar="S",
+                   help="with --transistor: seconds to look for the values to change (default 60)")
     _add_common(p)
 
     p = sub.add_parser("design", help="search standard values and stock for the best designs",

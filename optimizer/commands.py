@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import sys
 
-from .cli import EXIT_OK, print_json
-from .errors import FileProblems, Problem, ValueSyntaxError
+from .cli import EXIT_OK, EXIT_UNMET, print_json
+from .errors import ConvergenceError, FileProblems, Problem, ValueSyntaxError
 from .outputs.text import table
 from .spec.quantities import format_code, format_si, parse_value
 
@@ -120,7 +120,6 @@ def _design_under_spec(design, spec):
 def cmd_check(args) -> int:
     from .analysis.evaluate import analyse, ratings
     from .analysis.targets import judge
-    from .cli import EXIT_UNMET
     from .outputs.figures_json import analysis_json, analysis_text
     from .spec.designfile import load_design
     from .spec.specfile import load_spec
@@ -143,7 +142,14 @@ def cmd_check(args) -> int:
             raise FileProblems([Problem("command line", 0, "--transistor",
                                         f"unknown transistor type {args.transistor!r}{hint} (known: {', '.join(sorted(types))})")])
         design = design.with_model(args.transistor, types[args.transistor].model())
-    an = analyse(design)
+    try:
+        an = analyse(design)
+    except ConvergenceError as err:
+        if not args.transistor:
+            raise
+        # The old values may not bias the new type at all (another polarity, say): say so, and
+        # with a spec look for the values that would.
+        return _substitute_only(args, design, spec, err)
     rt = ratings(an)
     targets = judge(an, spec) if spec else None
     mc = None
@@ -155,17 +161,11 @@ def cmd_check(args) -> int:
         mc.pop("gain_samples", None)
     sub = None
     if args.transistor and spec is not None and targets is not None and not all(t.passed for t in targets):
-        from .outputs.bom import load_stock_for
-        from .search.substitute import fewest_changes
-
-        sub = fewest_changes(spec, design, args.transistor, load_stock_for(spec), seed=args.seed)
+        sub = _fewest_changes(args, spec, design)
     if args.json:
         data = analysis_json(an, rt, targets, mc)
         if sub is not None:
-            data["substitute"] = {
-                "transistor": args.transistor, "found": sub.verified is not None,
-                "margin": sub.verified.margin if sub.verified is not None else None,
-                "changes": [{"ref": r, "from": a, "to": b} for r, a, b in sub.changed], "note": sub.note}
+            data["substitute"] = _substitute_json(args, sub)
         print_json(data)
     else:
         print(analysis_text(an, rt, targets))
@@ -181,13 +181,49 @@ def cmd_check(args) -> int:
             print("  meets every target" if not bad else f"  misses {len(bad)} target(s): " + ", ".join(t.name for t in bad))
     if targets is not None and not all(t.passed for t in targets):
         if sub is not None and not args.json:
-            if sub.verified is not None:
-                print(f"\n  with {args.transistor} it meets the spec again (margin {sub.verified.margin:+.3f}, verified at"
-                      f" every corner) when these change: " + ", ".join(f"{r} {a} → {b}" for r, a, b in sub.changed))
-            else:
-                print(f"\n  {sub.note}")
+            _print_substitute(args, sub)
         return EXIT_UNMET
     return EXIT_OK
+
+
+def _fewest_changes(args, spec, design):
+    from .outputs.bom import load_stock_for
+    from .search.substitute import fewest_changes
+
+    return fewest_changes(spec, design, args.transistor, load_stock_for(spec), time_limit=args.time_limit,
+                          seed=args.seed)
+
+
+def _substitute_json(args, sub) -> dict:
+    return {"transistor": args.transistor, "found": sub.verified is not None,
+            "margin": sub.verified.margin if sub.verified is not None else None,
+            "changes": [{"ref": r, "from": a, "to": b} for r, a, b in sub.changed],
+            "proved": sub.proved, "note": sub.note}
+
+
+def _print_substitute(args, sub) -> None:
+    if sub.verified is not None:
+        print(f"\n  with {args.transistor} it meets the spec again (margin {sub.verified.margin:+.3f}, verified at"
+              f" every corner) when these change: " + ", ".join(f"{r} {a} → {b}" for r, a, b in sub.changed))
+        print(f"  ({sub.note})")
+    else:
+        print(f"\n  {sub.note}")
+
+
+def _substitute_only(args, design, spec, err) -> int:
+    """``check --transistor`` when the old values give the new type no operating point."""
+    why = f"with {args.transistor} the design as it stands has no working point the analysis can find ({err})"
+    sub = _fewest_changes(args, spec, design) if spec is not None else None
+    if args.json:
+        data = {"transistor": args.transistor, "error": why}
+        if sub is not None:
+            data["substitute"] = _substitute_json(args, sub)
+        print_json(data)
+    else:
+        print(f"  {why}")
+        if sub is not None:
+            _print_substitute(args, sub)
+    return EXIT_UNMET
 
 
 def _progress(args):
@@ -229,7 +265,6 @@ def _spec_with_overrides(args):
 def cmd_design(args) -> int:
     from pathlib import Path
 
-    from .cli import EXIT_UNMET
     from .outputs.results import ranked_table, result_json
     from .outputs.writer import write_outputs
     from .search.solve import search
@@ -290,7 +325,6 @@ def cmd_compare(args) -> int:
     from dataclasses import replace
     from pathlib import Path
 
-    from .cli import EXIT_UNMET
     from .outputs.results import design_entry
     from .search.solve import search
     from .spec.quantities import format_code, parse_quantity
