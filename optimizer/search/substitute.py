@@ -20,8 +20,13 @@ with the new type that keeps as many of the old values as it can, one of two way
   level with a verified design gives the answer. One change is the fewest there can be (the
   design as it stands was verified to miss); from two on the screen may have passed over a
   design (it leaves out part tolerances and estimates the swing), so the answer is the
-  fewest found, not proved. When no level up to ``MAX_CHANGES`` has one, the neighbourhood
-  search designs the stage afresh with the new type, and every value it changes is listed.
+  fewest found, not proved. When no level up to ``MAX_CHANGES`` has one, the stage is
+  designed afresh with the new type as ``stagefit design`` searches its topology, and every
+  value that changes is listed.
+
+When the relaxation ends without an answer or a proof, the second way goes on with the time
+left. A type the spec leaves out (``use: stock-only`` and not in the stock list) is taken as
+the builder's own: it is what they hold.
 
 Old values that are not among the spec's candidates (another series, out of range) count as
 their nearest candidate, and so as changed when the answer is written down.
@@ -38,8 +43,9 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from ..errors import ConvergenceError
+from ..catalog.transistors import transistor_types
 from .candidates import Candidates, RoleSlot, build_candidates
-from .local import _index_of, _present, _Screen, local_search
+from .local import _index_of, _present, _Screen
 from .model import S
 from .solve import RELAXATION_TOPOLOGIES, _model, _solver, learn_offsets
 from .verify import Choice, Verified, verify
@@ -71,8 +77,8 @@ CARRY = 3
 class Changes:
     """The outcome: ``verified`` (a passing design, or None), ``changed`` as (designator,
     old code, new code) triples (a part newly fitted or left out has "—" on that side),
-    ``proved`` when no design with fewer changes can pass, and a one-line ``note`` (how the
-    answer was found, or why there is none)."""
+    ``proved`` when no design with fewer changes can pass (with no design: when none can pass
+    at all), and a one-line ``note`` (how the answer was found, or why there is none)."""
 
     verified: Verified | None
     changed: list[tuple[str, str, str]]
@@ -105,15 +111,22 @@ def fewest_changes(spec, design, transistor: str, stock=None, time_limit: float 
     cands = build_candidates(sp, design.topology, stock)
     names = [nm for nm, _ in cands.transistors]
     if transistor not in names:
-        return Changes(None, [], f"{transistor} is not among the spec's transistor types or the stock's")
+        # Left out by use: stock-only (not in the stock list): the builder names a type in hand.
+        cands = replace(cands, transistors=[*cands.transistors, (transistor, transistor_types()[transistor])])
+        names.append(transistor)
     deadline = time.monotonic() + time_limit
-    t = names.index(transistor)
-    if design.topology in RELAXATION_TOPOLOGIES and cands.transistors[t][1].polarity == "npn":
-        return _by_relaxation(sp, cands, design, transistor, t, deadline, time_limit, seed)
-    return _by_neighbourhood(sp, cands, design, transistor, t, deadline, time_limit, seed)
+    # The type asked for only (use: stock-first also offers the stock's types).
+    one = replace(cands, transistors=[cands.transistors[names.index(transistor)]])
+    if design.topology in RELAXATION_TOPOLOGIES and one.transistors[0][1].polarity == "npn":
+        got = _by_relaxation(sp, one, design, transistor, deadline, time_limit, seed)
+        if got.verified is not None or got.proved or deadline - time.monotonic() < 2.0:
+            return got
+        # The relaxation ran out of proposals or time without a proof: the screen, level by
+        # level, with the time left.
+    return _by_neighbourhood(sp, one, design, transistor, deadline, seed)
 
 
-def _by_relaxation(sp, cands: Candidates, design, transistor: str, t: int, deadline: float, time_limit: float,
+def _by_relaxation(sp, cands: Candidates, design, transistor: str, deadline: float, time_limit: float,
                    seed: int) -> Changes:
     """Fewest changes by the relaxation model (divider-ce, NPN)."""
     have = {(p.role, p.input): p for p in design.parts}
@@ -130,14 +143,13 @@ def _by_relaxation(sp, cands: Candidates, design, transistor: str, t: int, deadl
     floor = 0.0
     while deadline - time.monotonic() > 0.5:
         sm = _model(sp, cands, cuts, floor, offsets)
-        sm.m.add(sm.tr[t] == 1)  # the stock may offer other types too
         sm.m.minimize(sum(1 - sm.x[key][i] for key, i in keep.items() if key in sm.x))
         left = deadline - time.monotonic()
         solver = _solver(seed, left, left)
         st = solver.solve(sm.m)
         if st == cp_model.INFEASIBLE and not cuts:
             return Changes(None, [], f"no design with {transistor} can meet the spec: the relaxation rules out every"
-                                     " choice of values (the spec needs another type, or looser targets)")
+                                     " choice of values (the spec needs another type, or looser targets)", True)
         if st == cp_model.INFEASIBLE:
             return Changes(None, [], f"no design with {transistor} found: {len(cuts)} proposal(s) failed the analysis"
                                      " and the model has nothing more to offer (not a proof: try stagefit design)")
@@ -166,6 +178,19 @@ def _verify(sp, cands: Candidates, choices: list[Choice]) -> list[Verified | Non
         if len(choices) == 1:
             return [None]
         return [v for c in choices for v in _verify(sp, cands, [c])]
+
+
+def _fresh(sp, cands: Candidates, left: float, seed: int) -> list[Verified]:
+    """A new design with the one type of ``cands``, searched as ``stagefit design`` searches
+    the topology (the relaxation for divider-ce with an NPN type, the neighbourhood model
+    otherwise)."""
+    from .solve import _search_local, _search_topology
+
+    start = time.monotonic()
+    quiet = lambda _msg: None  # noqa: E731
+    if cands.topology in RELAXATION_TOPOLOGIES and cands.transistors[0][1].polarity == "npn":
+        return list(_search_topology(sp, cands, 1, start + left, seed, quiet, start).designs)
+    return list(_search_local(sp, cands, 1, start + left, seed, quiet, start).designs)
 
 
 def _stock_ok(cands: Candidates, pick: dict) -> bool:
@@ -201,9 +226,9 @@ def _level_values(core: list[RoleSlot], x0: np.ndarray, k: int, helped: list[lis
     return out
 
 
-def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, t: int, deadline: float, time_limit: float,
-                      seed: int) -> Changes:
+def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, deadline: float, seed: int) -> Changes:
     """Fewest changes level by level through the quick screen (any topology, either polarity)."""
+    t = 0  # the one type of cands
     have = {(p.role, p.input): p for p in design.parts}
     on = {s.key: s.key in have for s in cands.slots if s.role.optional}
     sc = _Screen(sp, cands, on, t)
@@ -280,12 +305,15 @@ def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, t: int, de
                            " fewer changes passed")
         carried = sorted(tried, key=lambda pv: -pv[1].margin)[:CARRY]
     left = deadline - time.monotonic()
+    fresh = ""
     if left > 2.0:
-        found = local_search(sp, cands, 1, time.monotonic() + left, seed, lambda msg: None)["designs"]
+        t0 = time.monotonic()
+        found = _fresh(sp, cands, left, seed)
         if found:
             v = found[0]
             return Changes(v, _changed(design, v.design),
                            f"no change of up to {MAX_CHANGES} values was found to pass: a new design with {transistor}")
-    return Changes(None, [], f"no design with {transistor} found within {time_limit:g} s (up to {MAX_CHANGES} values"
-                             f" changed, then a new design); run stagefit design with transistors: [{transistor}]"
-                             f" and topology: {design.topology}")
+        fresh = f", nor a new design in {time.monotonic() - t0:.0f} s of search"
+    return Changes(None, [], f"no design with {transistor} found: no change of up to {MAX_CHANGES} values passed{fresh}"
+                             f" (not a proof; stagefit design with transistors: [{transistor}] and topology:"
+                             f" {design.topology} searches longer)")
