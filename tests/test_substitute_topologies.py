@@ -27,14 +27,13 @@ from pathlib import Path
 import pytest
 
 import spice_runner
-from optimizer.analysis.evaluate import analyse
-from optimizer.analysis.targets import judge
 from optimizer.catalog.transistors import transistor_types
 from optimizer.cli import main
 from optimizer.outputs.designfile_out import design_yaml
 from optimizer.search.substitute import fewest_changes
 from optimizer.spec.designfile import load_design
 from optimizer.spec.specfile import load_spec
+from test_substitute import _fails
 from test_topologies_vs_ngspice import TopologyStage
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -96,10 +95,6 @@ needs_ngspice = pytest.mark.skipif(
 )
 
 
-def _fails(design, spec) -> list[str]:
-    return [t.name for t in judge(analyse(design), spec) if not t.passed]
-
-
 def _design(tmp_path, text: str, name: str):
     path = tmp_path / f"{name}.yaml"
     path.write_text(text, encoding="utf-8")
@@ -114,20 +109,22 @@ def _cold_low_stage(tmp_path, spec, design, name: str) -> TopologyStage:
                          lowest_beta=True)
 
 
+def _answer(tmp_path_factory, path: Path, text: str, transistor: str):
+    """The spec, the design and fewest_changes' answer with ``transistor``."""
+    tmp = tmp_path_factory.mktemp(f"sub-{path.stem}")
+    spec = load_spec(path)
+    _, d = _design(tmp, text, path.stem)
+    return tmp, spec, d, fewest_changes(spec, d, transistor, None, time_limit=60)
+
+
 @pytest.fixture(scope="module")
 def cable_answer(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("sub-cable")
-    spec = load_spec(CABLE)
-    _, d = _design(tmp, CABLE_DESIGN, "cable")
-    return tmp, spec, d, fewest_changes(spec, d, "BC557B", None, time_limit=60)
+    return _answer(tmp_path_factory, CABLE, CABLE_DESIGN, "BC557B")
 
 
 @pytest.fixture(scope="module")
 def piezo_answer(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("sub-piezo")
-    spec = load_spec(PIEZO)
-    _, d = _design(tmp, PIEZO_DESIGN, "piezo")
-    return tmp, spec, d, fewest_changes(spec, d, "BC547A", None, time_limit=60)
+    return _answer(tmp_path_factory, PIEZO, PIEZO_DESIGN, "BC547A")
 
 
 def test_the_designs_meet_their_specs_with_their_own_types(tmp_path):

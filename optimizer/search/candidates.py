@@ -76,6 +76,15 @@ class Candidates:
                 return s
         return None
 
+    def stock_ok(self, pick: dict) -> bool:
+        """No stock line used more often than the drawer holds (``pick``: slot key → item index)."""
+        used: dict[int, int] = {}
+        for s in self.slots:
+            it = s.items[pick[s.key]]
+            if it.stock_line is not None:
+                used[it.stock_line] = used.get(it.stock_line, 0) + 1
+        return all(n <= self.stock_qty[line] for line, n in used.items())
+
     def size(self) -> float:
         """How many combinations there are (for reporting)."""
         n = float(len(self.transistors))

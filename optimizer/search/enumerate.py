@@ -35,18 +35,9 @@ def _choices(spec, cands: Candidates):
                     parts[s.key] = (it.value, it.tolerance)
             if not sizing_rule_ok(spec, parts, sources):
                 continue
-            if cands.stock is not None and not _stock_ok(cands, pick):
+            if cands.stock is not None and not cands.stock_ok(pick):
                 continue
             yield Choice.of(pick, tr)
-
-
-def _stock_ok(cands: Candidates, pick: dict) -> bool:
-    used: dict[int, int] = {}
-    for s in cands.slots:
-        it = s.items[pick[s.key]]
-        if it.stock_line is not None:
-            used[it.stock_line] = used.get(it.stock_line, 0) + 1
-    return all(n <= cands.stock_qty[line] for line, n in used.items())
 
 
 def space_size(spec, cands: Candidates) -> int:

@@ -193,16 +193,6 @@ def _fresh(sp, cands: Candidates, left: float, seed: int) -> list[Verified]:
     return list(_search_local(sp, cands, 1, start + left, seed, quiet, start).designs)
 
 
-def _stock_ok(cands: Candidates, pick: dict) -> bool:
-    """No stock line used more often than the drawer holds."""
-    used: dict[int, int] = {}
-    for s in cands.slots:
-        it = s.items[pick[s.key]]
-        if it.stock_line is not None:
-            used[it.stock_line] = used.get(it.stock_line, 0) + 1
-    return all(n <= cands.stock_qty.get(line, 0) for line, n in used.items())
-
-
 def _values(s: RoleSlot) -> list[float]:
     return sorted({it.value for it in s.items if not it.absent})
 
@@ -268,7 +258,7 @@ def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, deadline: 
             p2 = dict(base)
             for j, v in zip(*rows[r]):
                 p2[core[j].key] = _index_of(core[j], v)
-            if _stock_ok(cands, p2):
+            if cands.stock_ok(p2):
                 picks.append(p2)
         # One capacitor changed in the best failing designs of the level below that missed only
         # on a corner frequency.
@@ -281,7 +271,7 @@ def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, deadline: 
                     if abs(math.log(cv / own)) > 1e-9:
                         p2 = dict(pick)
                         p2[s.key] = _index_of(s, cv)
-                        if _stock_ok(cands, p2):
+                        if cands.stock_ok(p2):
                             picks.append(p2)
         tried: list[tuple[dict, Verified | None]] = []
         for a in range(0, len(picks), VERIFY_BATCH):
