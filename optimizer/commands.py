@@ -191,7 +191,13 @@ def _fewest_changes(args, spec, design):
     from .search.substitute import fewest_changes
 
     return fewest_changes(spec, design, args.transistor, load_stock_for(spec), time_limit=args.time_limit,
-                          seed=args.seed)
+                          seed=args.seed, wall_limit=_wall_limit(args))
+
+
+def _wall_limit(args):
+    """``--wall-limit``: left out, the time limit; 0, no bound."""
+    w = getattr(args, "wall_limit", None)
+    return "same" if w is None else (None if w <= 0 else w)
 
 
 def _substitute_json(args, sub) -> dict:
@@ -279,7 +285,7 @@ def cmd_design(args) -> int:
         writer.check(["result.json", "design-1.yaml", "bom.csv", "report.html"])
     for w in (stock.warnings if stock else ()):
         _warn(args, f"note: {w}")
-    result = search(spec, stock=stock, progress=_progress(args))
+    result = search(spec, stock=stock, progress=_progress(args), wall_limit=_wall_limit(args))
     from .analysis.evaluate import ratings
 
     rated = {id(v): ratings(v.analysis) for v in result.designs}
@@ -345,7 +351,7 @@ def cmd_compare(args) -> int:
         sp = replace(spec, supply=spec.supply.scaled(v))
         if say:
             say(f"supply {v:g} V ({sp.supply.min:.3g}–{sp.supply.max:.3g} V)")
-        r = search(sp, stock=stock, progress=say)
+        r = search(sp, stock=stock, progress=say, wall_limit=_wall_limit(args))
         row = {"supply": v, "supply_min": sp.supply.min, "supply_max": sp.supply.max, "status": r.status,
                "feasible": bool(r.designs)}
         if r.designs:

@@ -94,7 +94,7 @@ def _design(name: str, tmp_path_factory) -> Designed:
         env = dict(os.environ)
         env["PYTHONPATH"] = os.pathsep.join([str(ROOT), env.get("PYTHONPATH", "")]).rstrip(os.pathsep)
         cmd = [sys.executable, "-m", "optimizer", "design", str(ROOT / "specs" / f"{name}.yaml"), "--json",
-               "--out", str(out), "--time-limit", str(TIME_LIMIT), "--top", "1"]
+               "--out", str(out), "--time-limit", str(TIME_LIMIT), "--wall-limit", "0", "--top", "1"]
         proc = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=TIME_LIMIT + 240, cwd=ROOT)
         try:
             data = json.loads(proc.stdout)

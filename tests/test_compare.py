@@ -48,7 +48,7 @@ def _run(*args: str, out: Path) -> subprocess.CompletedProcess:
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join([str(ROOT), env.get("PYTHONPATH", "")]).rstrip(os.pathsep)
     cmd = [sys.executable, "-m", "optimizer", "compare", str(SPEC), *args, "--out", str(out),
-           "--time-limit", str(TIME_LIMIT)]
+           "--time-limit", str(TIME_LIMIT), "--wall-limit", "0"]
     return subprocess.run(cmd, capture_output=True, text=True, env=env, cwd=ROOT, timeout=900)
 
 

@@ -54,7 +54,7 @@ def written(tmp_path_factory):
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join([str(ROOT), env.get("PYTHONPATH", "")]).rstrip(os.pathsep)
     cmd = [sys.executable, "-m", "optimizer", "design", str(SPEC), "--json", "--out", str(out),
-           "--time-limit", str(TIME_LIMIT)]
+           "--time-limit", str(TIME_LIMIT), "--wall-limit", "0"]
     proc = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=TIME_LIMIT + 120, cwd=ROOT)
     assert proc.returncode == 0, f"design failed (exit code {proc.returncode}): {proc.stderr[-2000:]}"
     data = json.loads((out / "result.json").read_text(encoding="utf-8"))

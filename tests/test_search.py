@@ -41,7 +41,7 @@ def tiny2_enumerated(tiny2):
 
 @pytest.fixture(scope="module")
 def tiny2_result(tiny2):
-    return search(tiny2)
+    return search(tiny2, wall_limit=None)
 
 
 def _values(v):
@@ -69,7 +69,7 @@ def test_reported_designs_pass_an_independent_analysis(tiny2, tiny2_result):
 
 def test_infeasible_spec_is_proved_and_its_conflict_named(tiny2, tiny2_enumerated):
     spec = dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
-    r = search(spec)
+    r = search(spec, wall_limit=None)
     assert r.status == "infeasible"
     assert r.designs == []
     names = {c.target for c in r.conflicts}
@@ -84,8 +84,8 @@ def test_infeasible_spec_is_proved_and_its_conflict_named(tiny2, tiny2_enumerate
 
 
 def test_same_answer_twice_and_with_more_workers(tiny2, tiny2_result):
-    again = search(tiny2)
-    more = search(tiny2, workers=2)
+    again = search(tiny2, wall_limit=None)
+    more = search(tiny2, workers=2, wall_limit=None)
     for other in (again, more):
         assert other.status == tiny2_result.status
         assert [_values(v) for v in other.designs] == [_values(v) for v in tiny2_result.designs]
@@ -104,7 +104,7 @@ def test_stock_quantities_are_never_exceeded(tmp_path):
     spec_path = tmp_path / "s.yaml"
     spec_path.write_text(text, encoding="utf-8")
     spec = load_spec(spec_path)
-    r = search(spec, time_limit=30)
+    r = search(spec, time_limit=30, wall_limit=None)
     st = load_stock(stock)
     assert r.designs, r.notes
     for v in r.designs:

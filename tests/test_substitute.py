@@ -75,7 +75,7 @@ def test_the_design_holds_with_its_own_type_and_misses_with_the_other(files):
 def test_fewest_changes_are_fewest_and_pass(files):
     d_path, s_path = files
     d, spec = load_design(d_path), load_spec(s_path)
-    got = fewest_changes(spec, d, "2N3904", None, time_limit=30)
+    got = fewest_changes(spec, d, "2N3904", None, time_limit=30, wall_limit=None)
     assert got.verified is not None, got.note
     assert got.verified.margin >= 0 and got.verified.design.transistor == "2N3904"
     # Independent of the model: the design it names passes the analysis on its own.
@@ -88,13 +88,13 @@ def test_fewest_changes_are_fewest_and_pass(files):
 
 def test_check_command_says_what_to_change(files, capsys):
     d_path, s_path = files
-    code = main(["check", str(d_path), "--spec", str(s_path), "--transistor", "2N3904", "--json"])
+    code = main(["check", str(d_path), "--spec", str(s_path), "--transistor", "2N3904", "--wall-limit", "0", "--json"])
     out = json.loads(capsys.readouterr().out)
     assert code == 3  # README exit codes: the design as it stands misses its spec
     sub = out["substitute"]
     assert sub["transistor"] == "2N3904" and sub["found"] is True and sub["margin"] >= 0
     assert len(sub["changes"]) == 1 and set(sub["changes"][0]) == {"ref", "from", "to"}
-    code = main(["check", str(d_path), "--spec", str(s_path), "--transistor", "2N3904"])
+    code = main(["check", str(d_path), "--spec", str(s_path), "--transistor", "2N3904", "--wall-limit", "0"])
     text = capsys.readouterr().out
     assert code == 3
     assert "with 2N3904 it meets the spec again" in text
@@ -130,7 +130,7 @@ def test_a_pnp_substitute_gets_the_fewest_changes(files, pnp):
                if abs(v - p.value) > 1e-6 * v]
     assert len(singles) == 18
     assert all(_fails(_with_values(as_is, {ref: v}), spec) for ref, v in singles)
-    got = fewest_changes(spec, d, pnp, None, time_limit=30)
+    got = fewest_changes(spec, d, pnp, None, time_limit=30, wall_limit=None)
     assert got.verified is not None, got.note
     assert got.verified.design.transistor == pnp and _fails(got.verified.design, spec) == []
     assert len(got.changed) == 2 and not got.proved

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..physics import BOLTZMANN, CHARGE
-from . import linalg
+from . import linalg, work
 from .network import Network, OperatingPoint, _stamp
 
 __all__ = ["Midband", "Response", "cutoffs", "midband", "noise"]
@@ -124,7 +124,7 @@ class Response:
         F = s.shape[1]
         A = np.eye(self.m)[None, None] + s[:, :, None, None] * self.M[:, None]  # (B, F, m, m)
         # The adjoint system (I + sM)ᵀ z = a serves every input with one right-hand side.
-        z = np.linalg.solve(np.swapaxes(A, 2, 3), np.broadcast_to(self.a[:, None, :, None], (self.B, F, self.m, 1)))
+        z = work.solve(np.swapaxes(A, 2, 3), np.broadcast_to(self.a[:, None, :, None], (self.B, F, self.m, 1)))
         if not np.all(np.isfinite(z)):
             raise np.linalg.LinAlgError("singular matrix")
         zc = np.einsum("bfm,bmk->kbf", z[..., 0], self.c)

@@ -28,6 +28,7 @@ import numpy as np
 
 from ..errors import ConvergenceError
 from . import bjt as dev
+from . import work
 from .network import Batch, Network, OperatingPoint, _stamp
 
 __all__ = ["ClipLimits", "SignalResult", "clip_limits", "swing_at_thd", "thd_at_level", "harmonic_balance"]
@@ -74,7 +75,7 @@ class _Params:
 def _newton_step(J, F):
     """−J⁻¹F per variant; a singular system falls back to least squares for that variant."""
     try:
-        return -np.linalg.solve(J, F)
+        return -work.solve(J, F)
     except np.linalg.LinAlgError:
         out = np.zeros_like(F)
         for b in range(J.shape[0]):
@@ -112,8 +113,8 @@ class _HB:
             YIP = Yff[:, :, I][:, :, :, P]
             YPI = Yff[:, :, P][:, :, :, I]
             YIx = Y[:, :, I][:, :, :, fx]
-            Xp = np.linalg.solve(YII, YIP)  # (B, H+1, ni, p)
-            Xx = np.linalg.solve(YII, YIx)
+            Xp = work.solve(YII, YIP)  # (B, H+1, ni, p)
+            Xx = work.solve(YII, YIx)
             self.Yr = YPP - YPI @ Xp
             self.Kx = YPx - YPI @ Xx
         else:

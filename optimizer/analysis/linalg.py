@@ -13,6 +13,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import work
+
 __all__ = ["solve"]
 
 
@@ -42,13 +44,14 @@ def solve(A: np.ndarray, b: np.ndarray) -> np.ndarray:
     if vec:
         b = b[:, None]
     if n <= 3:
+        work.charge(work.cost(n, b.shape[1], int(np.prod(batch)) if batch else 1))
         x = _cramer(A, b)
         return x[:, 0] if vec else x
     k = b.shape[1]
     S = int(np.prod(batch)) if batch else 1
     Ab = np.moveaxis(A.reshape(n, n, S), 2, 0)
     bb = np.moveaxis(b.reshape(n, k, S), 2, 0)
-    x = np.linalg.solve(Ab, bb)
+    x = work.solve(Ab, bb)
     if not np.all(np.isfinite(x)):
         raise np.linalg.LinAlgError("singular matrix")
     x = np.moveaxis(x, 0, 2).reshape((n, k) + batch)

@@ -11,7 +11,7 @@ no design can beat ("the gain can be at most …").
 from __future__ import annotations
 
 import math
-import time
+
 from dataclasses import dataclass
 
 from ortools.sat.python import cp_model
@@ -19,6 +19,7 @@ from ortools.sat.python import cp_model
 from ..analysis.targets import DB_PER_NEPER
 from ..spec.quantities import format_si
 from ..spec.specfile import Spec
+from . import clock
 from .candidates import Candidates
 from .model import S, StageModel
 
@@ -44,8 +45,7 @@ def _solver(seed, seconds, one_worker=True):
     s = cp_model.CpSolver()
     s.parameters.num_workers = 1
     s.parameters.random_seed = seed
-    s.parameters.max_deterministic_time = max(seconds, 0.1)
-    s.parameters.max_time_in_seconds = max(seconds * 2, 0.2)
+    clock.limit(s.parameters, max(seconds, 0.1))
     s.parameters.linearization_level = 0
     return s
 
@@ -55,7 +55,7 @@ def _feasible(spec, cands, on: set[str], seed, seconds) -> int:
     for name, lit in sm.on.items():
         sm.m.add(lit == (1 if name in on else 0))
     sm.m.add(sm.u.expr >= S)
-    return _solver(seed, seconds).solve(sm.m)
+    return clock.run(_solver(seed, seconds), sm.m)
 
 
 def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[Conflict]:
@@ -65,14 +65,14 @@ def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[C
     always taken). A solve that runs out of time proves nothing: a target it could not
     settle stays in the set, and its nearest value is reported as not determined.
     """
-    budget = max(deadline - time.monotonic(), 3.0)
-    end = time.monotonic() + budget
+    budget = max(deadline - clock.now(), 3.0)
+    end = clock.now() + budget
     sm = StageModel(spec, cands)
     names = list(sm.on)
     sm.m.add(sm.u.expr >= S)
     sm.m.add_assumptions(list(sm.on.values()))
     solver = _solver(seed, min(10.0, 0.3 * budget))
-    st = solver.solve(sm.m)
+    st = clock.run(solver, sm.m)
     if st != cp_model.INFEASIBLE:
         core = set(names)
     else:
@@ -80,7 +80,7 @@ def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[C
         core = {idx[i] for i in solver.sufficient_assumptions_for_infeasibility() if i in idx} or set(names)
     # Deletion loop: drop a target; if the rest is still infeasible, it was not needed.
     for name in sorted(core):
-        left = end - time.monotonic()
+        left = end - clock.now()
         if left <= 0.5:
             break
         trial = core - {name}
@@ -88,7 +88,7 @@ def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[C
             core = trial
     out = []
     for k, name in enumerate(sorted(core)):
-        left = end - time.monotonic()
+        left = end - clock.now()
         t = _nearest(spec, cands, name, core, seed, max(min(10.0, left / (len(core) - k)), 0.2))
         out.append(_describe(spec, name, t))
     return out
@@ -106,7 +106,7 @@ def _nearest(spec, cands, name, core, seed, seconds) -> float | None:
     sm.m.add(sm.u.expr >= S)
     sm.m.maximize(sm.u_sep.expr)
     solver = _solver(seed, seconds)
-    st = solver.solve(sm.m)
+    st = clock.run(solver, sm.m)
     if st in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         bound = solver.best_objective_bound if st == cp_model.FEASIBLE else solver.value(sm.u_sep.expr)
         return math.log(max(bound, 1) / S)

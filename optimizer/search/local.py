@@ -39,7 +39,6 @@ from __future__ import annotations
 
 import itertools
 import math
-import time
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -52,6 +51,7 @@ from ..analysis.network import Batch, Network
 from ..analysis.targets import design_margin, judge
 from ..circuit.build import build_circuit
 from ..errors import ConvergenceError
+from . import clock
 from .candidates import Candidates, RoleSlot
 from .verify import Choice, Verified, design_of, needs_large_signal, verify
 
@@ -306,7 +306,7 @@ def _continuous(sc: _Screen, rng: np.random.Generator, deadline: float) -> tuple
     allZ, allm = [Z], [sc.margins(np.exp(Z), keep=12)]
     sigma = 0.6
     for _ in range(ROUNDS):
-        if time.monotonic() > deadline:
+        if clock.now() > deadline:
             break
         Zc = np.concatenate(allZ)
         mc = np.concatenate(allm)
@@ -359,7 +359,7 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
     stats = {"solves": 0, "verified": 0, "screened": 0, "structures": 0, "passes": 0}
     # A quarter of the time is kept for sizing the capacitors of what is found: the screen
     # fits large ones (up to AMPLE), bigger than a builder needs.
-    find_end = deadline - TRIM_SHARE * max(deadline - time.monotonic(), 0.0)
+    find_end = deadline - TRIM_SHARE * max(deadline - clock.now(), 0.0)
     v_cost = 0.0  # the longest verification so far (s): none is begun that would end past find_end
     rng = np.random.default_rng(seed)
     verified: list[Verified] = []
@@ -376,20 +376,20 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
     stats["structures"] = len(work)
     # Passes: each a fresh evolution from new samples, while nothing has passed and time is left.
     for attempt in range(PASSES):
-        if not verified and find_end < deadline and find_end - time.monotonic() < 2.0:
+        if not verified and find_end < deadline and find_end - clock.now() < 2.0:
             find_end = deadline  # nothing found to trim: the kept time goes to one more pass
-        if verified or find_end - time.monotonic() < 2.0:
+        if verified or find_end - clock.now() < 2.0:
             break
         stats["passes"] = attempt + 1
         tables = []
         for w, sc in enumerate(work):
-            left = find_end - time.monotonic()
+            left = find_end - clock.now()
             if left <= 0:
                 break
             # Share what is left between the structures not yet searched, keeping a third for
             # the solver and the verifier.
             share = 0.66 * left / (len(work) - w)
-            t_end = time.monotonic() + share
+            t_end = clock.now() + share
             X, m = _continuous(sc, rng, t_end - 0.25 * share)
             stats["screened"] += len(m)
             if not np.isfinite(m[0]):
@@ -410,27 +410,27 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
                 f" continuous {float(m[0]):+.3f}, best of {len(rows)} series neighbours {float(np.max(tm)):+.3f}")
         # Rows in order of the screened margin over every table: the solver picks among them.
         for sc, options, rows, tm in sorted(tables, key=lambda x: -float(np.max(x[3]))):
-            if time.monotonic() > find_end:
+            if clock.now() > find_end:
                 break
             cut: list[int] = []
             misses = 0
             for _ in range(8):
-                if time.monotonic() + max(v_cost, 1.0) > find_end:
+                if clock.now() + max(v_cost, 1.0) > find_end:
                     break
-                r = _solve_table(sc, options, rows, tm, cut, seed, max(min(2.0, find_end - time.monotonic()), 0.1), stats)
+                r = _solve_table(sc, options, rows, tm, cut, seed, max(min(2.0, find_end - clock.now()), 0.1), stats)
                 if r is None:
                     break
                 cut.append(r[0])
                 if tm[r[0]] < -0.5:
                     break
                 ch = r[1]
-                t_v = time.monotonic()
+                t_v = clock.now()
                 v = verify(spec, cands, [ch])[0]
                 stats["verified"] += 1
-                v_cost = max(v_cost, time.monotonic() - t_v)
+                v_cost = max(v_cost, clock.now() - t_v)
                 worst = min(v.targets, key=lambda t: t.margin) if v.targets else None
                 say(f"{cands.topology}: verified a design (screened {float(tm[r[0]]):+.3f}) at {v.margin:+.3f}"
-                    + (f", worst {worst.name}" if worst is not None else "") + f" in {time.monotonic() - t_v:.1f} s")
+                    + (f", worst {worst.name}" if worst is not None else "") + f" in {clock.now() - t_v:.1f} s")
                 (verified if v.margin >= 0 else failed).append(v)
                 if v.margin >= 0 and sum(1 for x in verified if x.choice.transistor == sc.tr) >= top:
                     break
@@ -438,7 +438,7 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
                 if misses >= MISSES:  # the table's near neighbours fail alike: a fresh pass is better
                     break
     good = sorted(verified, key=lambda v: -v.margin)[:top]
-    if good and time.monotonic() < deadline:
+    if good and clock.now() < deadline:
         good = _trim(spec, cands, good, stats, deadline)
     notes = [f"{cands.topology}: searched by the neighbourhood table model ({stats['structures']} structures,"
              f" {stats['passes']} pass{'es' if stats['passes'] != 1 else ''}, {stats['screened']} designs screened); not proved best"]
@@ -483,9 +483,8 @@ def _solve_table(sc: _Screen, options, rows, tm, cut, seed, t, stats):
     s = cp_model.CpSolver()
     s.parameters.num_workers = 1
     s.parameters.random_seed = seed
-    s.parameters.max_time_in_seconds = t
-    s.parameters.max_deterministic_time = t
-    st = s.solve(m)
+    clock.limit(s.parameters, t)
+    st = clock.run(s, m)
     stats["solves"] += 1
     if st not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return None
@@ -512,11 +511,11 @@ def _trim(spec, cands: Candidates, designs: list[Verified], stats, deadline: flo
         vals = [v for v in common if v < current]
         state.append([d, pick, fitted, vals, 0, len(vals) - 1 if fitted else -1, max(d.margin - TIE, 0.0)])
     cost = 0.0
-    while time.monotonic() + cost < deadline:
+    while clock.now() + cost < deadline:
         live = [st for st in state if st[4] <= st[5]]
         if not live:
             break
-        t0 = time.monotonic()
+        t0 = clock.now()
         choices = []
         for best, pick, fitted, vals, lo, hi, _ in live:
             p2 = dict(pick)
@@ -525,7 +524,7 @@ def _trim(spec, cands: Candidates, designs: list[Verified], stats, deadline: flo
             choices.append(Choice.of(p2, best.choice.transistor))
         checked = verify(spec, cands, choices)
         stats["verified"] += len(checked)
-        cost = max(cost, time.monotonic() - t0)
+        cost = max(cost, clock.now() - t0)
         for st, v in zip(live, checked):
             mid = (st[4] + st[5]) // 2
             if v.margin >= st[6]:

@@ -25,13 +25,13 @@ unique tie-break in the objective, and a total order for the ranking.
 from __future__ import annotations
 
 import math
-import time
 from dataclasses import dataclass, field, replace
 
 from ortools.sat.python import cp_model
 
 from ..spec.specfile import Spec
 from ..spec.stockfile import Stock
+from . import clock
 from .candidates import Candidates, build_candidates
 from .model import S, StageModel
 from .verify import Choice, Verified, needs_large_signal, verify
@@ -124,8 +124,9 @@ class _Collector(cp_model.CpSolverSolutionCallback):
             self.found.pop(0)
 
 
-def _solver(seed: int, det_time: float, wall: float, presolve: bool = False) -> cp_model.CpSolver:
-    """One worker, a fixed seed and a deterministic-time limit: the same answer every run.
+def _solver(seed: int, seconds: float, presolve: bool = False) -> cp_model.CpSolver:
+    """One worker, a fixed seed and ``seconds`` of the search's clock as deterministic time
+    (:mod:`.clock`): the same answer every run.
 
     Presolve is off by default: on these models it costs more than it saves (measured on
     the bundled specs); an infeasibility is always confirmed with the other setting too.
@@ -133,8 +134,7 @@ def _solver(seed: int, det_time: float, wall: float, presolve: bool = False) -> 
     s = cp_model.CpSolver()
     s.parameters.num_workers = _WORKERS
     s.parameters.random_seed = seed
-    s.parameters.max_deterministic_time = max(det_time, 0.05)
-    s.parameters.max_time_in_seconds = max(wall, 0.1)
+    clock.limit(s.parameters, max(seconds, 0.05))
     s.parameters.linearization_level = 0
     s.parameters.cp_model_presolve = presolve
     return s
@@ -162,6 +162,7 @@ def search(
     seed: int | None = None,
     progress=None,
     workers: int = 1,
+    wall_limit: float | None | str = "same",
 ) -> SearchResult:
     """Find the best designs of the spec (see the module docstring).
 
@@ -172,20 +173,34 @@ def search(
     stock
         A stock list (overrides the spec's).
     top, time_limit, seed
-        Override the spec's ``search`` settings.
+        Override the spec's ``search`` settings. ``time_limit`` is seconds of work on the
+        search's clock (:mod:`.clock`), the same on any machine.
     progress
         Called with a short text as the search goes (for a terminal), or None.
     workers
         Solver workers. With more than one the solver's own path varies from run to run; the
         answer is the same whenever it is proved (the ranking is a total order).
+    wall_limit
+        Seconds of wall time after which the search stops whatever its clock says (by
+        default the time limit; None for no bound, which makes the answer the same on any
+        machine however slow).
     """
+    time_limit = time_limit if time_limit is not None else spec.search.time_limit
+    with clock.session(time_limit if wall_limit == "same" else wall_limit):
+        r = _search(spec, stock, top, time_limit, seed, progress, workers)
+    if clock.cut_short():
+        r.notes.append("the wall clock ran out before the work budget (this machine is slower than the"
+                       " one the clock was measured on): a faster machine may give another answer")
+    return r
+
+
+def _search(spec, stock, top, time_limit, seed, progress, workers) -> SearchResult:
     global _WORKERS
     _WORKERS = max(1, int(workers))
     top = top or spec.search.top
-    time_limit = time_limit if time_limit is not None else spec.search.time_limit
     seed = spec.search.seed if seed is None else seed
     say = progress or (lambda _msg: None)
-    start = time.monotonic()
+    start = clock.now()
     deadline = start + time_limit
     results = []
     topologies = list(spec.topologies)
@@ -204,14 +219,14 @@ def search(
         say(f"{topology}: {len(cands.slots)} parts to choose, {cands.size():.3g} combinations")
         # Each topology gets its weighted share of the time left (one that finishes early
         # leaves its time to the rest).
-        share = time.monotonic() + (deadline - time.monotonic()) * weights[n] / sum(weights[n:])
+        share = clock.now() + (deadline - clock.now()) * weights[n] / sum(weights[n:])
         if topology in RELAXATION_TOPOLOGIES:
             # The relaxation encodes the NPN stage only; PNP types of the same topology go to
             # the neighbourhood table model (a third of the time when both kinds are listed).
             npn = [t for t in cands.transistors if t[1].polarity == "npn"]
             pnp = [t for t in cands.transistors if t[1].polarity != "npn"]
             if npn:
-                end = share if not pnp else time.monotonic() + (share - time.monotonic()) * 2 / 3
+                end = share if not pnp else clock.now() + (share - clock.now()) * 2 / 3
                 results.append(_search_topology(spec, replace(cands, transistors=npn), top, end, seed, say, start))
             if pnp:
                 r = _search_local(spec, replace(cands, transistors=pnp), top, share, seed, say, start)
@@ -290,20 +305,20 @@ def _search_local(spec: Spec, cands: Candidates, top: int, deadline: float, seed
 
     got = local_search(spec, cands, top, deadline, seed, say)
     designs = _distinct(rank(got["designs"]))[:top]
-    designs = _finish(spec, cands, designs, stock_swap=time.monotonic() < deadline)
+    designs = _finish(spec, cands, designs, stock_swap=clock.now() < deadline)
     status = "feasible" if designs else "unknown"
     notes = list(got["notes"])
     if not designs:
         notes.append("no design of this topology passed every target in the time given; nothing is proved either way")
     stats = dict(got["stats"])
-    stats["seconds"] = round(time.monotonic() - start, 2)
+    stats["work_seconds"] = round(clock.now() - start, 2)
     return SearchResult(status, designs, cands.topology, near_misses=got["failed"], notes=notes, stats=stats,
                         candidates=cands)
 
 
 def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, seed: int, say, start) -> SearchResult:
     stats = {"solves": 0, "verified": 0}
-    left = lambda: deadline - time.monotonic()  # noqa: E731
+    left = lambda: deadline - clock.now()  # noqa: E731
 
     verified: list[Verified] = []
     failed: list[Verified] = []
@@ -323,10 +338,10 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     seen: set = set()
     core_cuts: list[Choice] = []
     best_proved = topk_proved = False
-    chunk = max(2.0, (deadline - time.monotonic()) / 8)
+    chunk = max(2.0, (deadline - clock.now()) / 8)
     # Keep back time for the polish and for the large-signal figures of the reported designs.
-    reserve = 0.15 * (deadline - time.monotonic()) + (2.0 * top if not needs_large_signal(spec) else 0.5 * top)
-    polish_at = deadline - 0.2 * (deadline - time.monotonic())
+    reserve = 0.15 * (deadline - clock.now()) + (2.0 * top if not needs_large_signal(spec) else 0.5 * top)
+    polish_at = deadline - 0.2 * (deadline - clock.now())
     loop_end = deadline - reserve
     per_design = 0.0  # the longest verification seen, seconds per design
 
@@ -338,8 +353,8 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         n = min(top, len(_passing(verified)))
         return 1.3 * (per_design * (2 * n + 2) + (n + 1) * 1.0 + 2.0) if n else 0.0
 
-    while (time.monotonic() < min(loop_end, deadline - final_need())
-           and (best is None or time.monotonic() < polish_at)):
+    while (clock.now() < min(loop_end, deadline - final_need())
+           and (best is None or clock.now() < polish_at)):
         rounds += 1
         # Phase 1: something better than the best so far. Phase 2 (once the best is proved):
         # something that could still enter the top K, above the K-th best verified.
@@ -355,10 +370,10 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         # floor climbs in large steps and proposals sit away from the model's edges; the last
         # few improving solutions are verified together.
         sm.m.maximize(sm.u.expr)
-        budget = max(min(loop_end, deadline - final_need()) - time.monotonic(), 0.1)
-        solver = _solver(seed, min(budget, chunk), budget)
+        budget = max(min(loop_end, deadline - final_need()) - clock.now(), 0.1)
+        solver = _solver(seed, min(budget, chunk))
         coll = _Collector(sm, limit=VERIFY_PER_ROUND * 4)
-        st = solver.solve(sm.m, coll)
+        st = clock.run(solver, sm.m, coll)
         stats["solves"] += 1
         relaxed = not any(v > 0.002 for v in offsets.values())
         if st == cp_model.INFEASIBLE:
@@ -369,7 +384,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
                     # known wrong-answer bugs.
                     say("no design can meet every target; confirming with presolve on")
                     sm2 = _model(spec, cands, cuts, 0.0, None, core_cuts)
-                    st2 = _solver(seed, min(max(left(), 5.0), 20.0), max(left(), 5.0), presolve=True).solve(sm2.m)
+                    st2 = clock.run(_solver(seed, min(max(left(), 5.0), 20.0), presolve=True), sm2.m)
                     stats["solves"] += 1
                     if st2 != cp_model.INFEASIBLE:
                         why = ("the solver's two answers disagreed (infeasible without presolve, not with it)"
@@ -407,9 +422,9 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
             proposals.append((u, ch))
         if not proposals:
             continue
-        t_v = time.monotonic()
+        t_v = clock.now()
         checked = verify(spec, cands, [ch for _, ch in proposals])
-        per_design = max(per_design, (time.monotonic() - t_v) / len(proposals))
+        per_design = max(per_design, (clock.now() - t_v) / len(proposals))
         for (u, ch), v in zip(proposals, checked):
             (verified if v.margin >= 0 else failed).append(v)
             stats["verified"] += 1
@@ -449,7 +464,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         notes.append("the first design is proved best" + (
             f"; the top {len(designs)} are proved the best {len(designs)}" if topk_proved and len(designs) > 1 else
             "" if len(designs) == 1 else "; the others are the next best verified"))
-    stats["seconds"] = round(time.monotonic() - start, 2)
+    stats["work_seconds"] = round(clock.now() - start, 2)
     stats["offsets"] = {k: round(v, 3) for k, v in offsets.items()}
     res = SearchResult(status, designs, cands.topology, bound=bound, near_misses=sorted(failed, key=rank_key)[:3],
                        notes=notes, stats=stats, candidates=cands)
@@ -506,8 +521,8 @@ def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     sm = _model(spec, cands, [], best - TIE, offsets)
     parts, lines, bought, capsize, tie = sm.simplicity()
     sm.m.minimize(parts * 10**8 + lines * 10**6 + bought * 10**4 + capsize)
-    solver = _solver(seed, t, t)
-    st = solver.solve(sm.m)
+    solver = _solver(seed, t)
+    st = clock.run(solver, sm.m)
     stats["solves"] += 1
     if st not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return None
@@ -516,8 +531,8 @@ def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     return verify(spec, cands, [Choice.of(pick, tr)])[0]
 
 
-#: Deterministic time (the solver's own unit, about a second) of each capacitor-trim solve.
-TRIM_DET_TIME = 1.0
+#: Seconds of the search's clock for each capacitor-trim solve.
+TRIM_SECONDS = 1.0
 
 
 def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stats) -> list[Verified]:
@@ -541,11 +556,8 @@ def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stat
         _parts, lines, bought, capsize, _tie = sm.simplicity()
         sm.m.minimize(lines * 10**6 + bought * 10**4 + capsize)
         sm.hint(d.choice)
-        # A fixed deterministic-time budget (the same answer on a busy machine), under a
-        # wall-clock limit that only a nearly spent time limit makes bind.
-        t = max(min(2.0, (left() - final_need()) / (2 * len(designs))), 0.1)
-        solver = _solver(seed, TRIM_DET_TIME, max(t, TRIM_DET_TIME))
-        st = solver.solve(sm.m)
+        solver = _solver(seed, TRIM_SECONDS)
+        st = clock.run(solver, sm.m)
         stats["solves"] += 1
         if st in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             pick, tr = sm.chosen(solver.boolean_value)
@@ -584,7 +596,7 @@ def _values_key(cands: Candidates, ch: Choice) -> tuple:
 def _proved_none_above(spec, cands, cuts, floor, seed, left, chunk, core_cuts=()) -> bool:
     """Does the relaxation prove that no design outside ``cuts`` reaches margin ``floor``?"""
     sm = _model(spec, cands, cuts, floor, None, core_cuts)
-    st = _solver(seed, min(left(), chunk), left()).solve(sm.m)
+    st = clock.run(_solver(seed, min(left(), chunk)), sm.m)
     return st == cp_model.INFEASIBLE
 
 

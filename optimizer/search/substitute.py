@@ -36,7 +36,6 @@ from __future__ import annotations
 
 import itertools
 import math
-import time
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -44,6 +43,7 @@ from ortools.sat.python import cp_model
 
 from ..errors import ConvergenceError
 from ..catalog.transistors import transistor_types
+from . import clock
 from .candidates import Candidates, RoleSlot, build_candidates
 from .local import _index_of, _present, _Screen
 from .model import S
@@ -104,9 +104,16 @@ def _changed(design, new_design) -> list[tuple[str, str, str]]:
     return out
 
 
-def fewest_changes(spec, design, transistor: str, stock=None, time_limit: float = 60.0, seed: int = 1) -> Changes:
+def fewest_changes(spec, design, transistor: str, stock=None, time_limit: float = 60.0, seed: int = 1,
+                   wall_limit: float | None | str = "same") -> Changes:
     """The design's values with the fewest changes that meet ``spec`` with ``transistor``
-    (the module docstring has the two ways), within ``time_limit`` seconds."""
+    (the module docstring has the two ways), within ``time_limit`` seconds of the search's
+    clock and ``wall_limit`` seconds of wall time (as :func:`~.solve.search`)."""
+    with clock.session(time_limit if wall_limit == "same" else wall_limit):
+        return _fewest_changes(spec, design, transistor, stock, time_limit, seed)
+
+
+def _fewest_changes(spec, design, transistor: str, stock, time_limit: float, seed: int) -> Changes:
     sp = replace(spec, parts=replace(spec.parts, transistors=(transistor,)))
     cands = build_candidates(sp, design.topology, stock)
     names = [nm for nm, _ in cands.transistors]
@@ -114,12 +121,12 @@ def fewest_changes(spec, design, transistor: str, stock=None, time_limit: float 
         # Left out by use: stock-only (not in the stock list): the builder names a type in hand.
         cands = replace(cands, transistors=[*cands.transistors, (transistor, transistor_types()[transistor])])
         names.append(transistor)
-    deadline = time.monotonic() + time_limit
+    deadline = clock.now() + time_limit
     # The type asked for only (use: stock-first also offers the stock's types).
     one = replace(cands, transistors=[cands.transistors[names.index(transistor)]])
     if design.topology in RELAXATION_TOPOLOGIES and one.transistors[0][1].polarity == "npn":
         got = _by_relaxation(sp, one, design, transistor, deadline, time_limit, seed)
-        if got.verified is not None or got.proved or deadline - time.monotonic() < 2.0:
+        if got.verified is not None or got.proved or deadline - clock.now() < 2.0:
             return got
         # The relaxation ran out of proposals or time without a proof: the screen, level by
         # level, with the time left.
@@ -141,12 +148,12 @@ def _by_relaxation(sp, cands: Candidates, design, transistor: str, deadline: flo
     cuts: list[Choice] = []
     offsets: dict[str, float] = {}
     floor = 0.0
-    while deadline - time.monotonic() > 0.5:
+    while deadline - clock.now() > 0.5:
         sm = _model(sp, cands, cuts, floor, offsets)
         sm.m.minimize(sum(1 - sm.x[key][i] for key, i in keep.items() if key in sm.x))
-        left = deadline - time.monotonic()
-        solver = _solver(seed, left, left)
-        st = solver.solve(sm.m)
+        left = deadline - clock.now()
+        solver = _solver(seed, left)
+        st = clock.run(solver, sm.m)
         if st == cp_model.INFEASIBLE and not cuts:
             return Changes(None, [], f"no design with {transistor} can meet the spec: the relaxation rules out every"
                                      " choice of values (the spec needs another type, or looser targets)", True)
@@ -186,7 +193,7 @@ def _fresh(sp, cands: Candidates, left: float, seed: int) -> list[Verified]:
     otherwise)."""
     from .solve import _search_local, _search_topology
 
-    start = time.monotonic()
+    start = clock.now()
     quiet = lambda _msg: None  # noqa: E731
     if cands.topology in RELAXATION_TOPOLOGIES and cands.transistors[0][1].polarity == "npn":
         return list(_search_topology(sp, cands, 1, start + left, seed, quiet, start).designs)
@@ -230,15 +237,15 @@ def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, deadline: 
     core = sc.core
     caps = [s for s in cands.slots if s.kind == "C" and _present(s, on)]
     x0 = np.array([s.items[base[s.key]].value for s in core])
-    t0 = time.monotonic()
+    t0 = clock.now()
     first = _verify(sp, cands, [Choice.of(base, t)])[0]
-    v_cost = time.monotonic() - t0  # the longest verification of one design so far (s)
+    v_cost = clock.now() - t0  # the longest verification of one design so far (s)
     if first is not None and first.passed:
         return Changes(first, _changed(design, first.design), "the design's values (as the spec's candidates) pass")
     carried: list[tuple[dict, Verified | None]] = [(base, first)]
     helped: list[list[float]] = [[] for _ in core]
     for k in range(1, MAX_CHANGES + 1):
-        if time.monotonic() > deadline:
+        if clock.now() > deadline:
             break
         vals = _level_values(core, x0, k, helped)
         rows = [(js, vs) for js in itertools.combinations(range(len(core)), k)
@@ -276,11 +283,11 @@ def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, deadline: 
         tried: list[tuple[dict, Verified | None]] = []
         for a in range(0, len(picks), VERIFY_BATCH):
             batch = picks[a:a + VERIFY_BATCH]
-            if time.monotonic() + v_cost * len(batch) > deadline:
+            if clock.now() + v_cost * len(batch) > deadline:
                 break
-            t0 = time.monotonic()
+            t0 = clock.now()
             checked = _verify(sp, cands, [Choice.of(p, t) for p in batch])
-            v_cost = max(v_cost, (time.monotonic() - t0) / len(batch))
+            v_cost = max(v_cost, (clock.now() - t0) / len(batch))
             tried += [(p, v) for p, v in zip(batch, checked) if v is not None]
             good = [v for v in checked if v is not None and v.passed]
             if not good:
@@ -294,16 +301,16 @@ def _by_neighbourhood(sp, cands: Candidates, design, transistor: str, deadline: 
                            " among each part's nearest values and the ones that helped most alone; none with"
                            " fewer changes passed")
         carried = sorted(tried, key=lambda pv: -pv[1].margin)[:CARRY]
-    left = deadline - time.monotonic()
+    left = deadline - clock.now()
     fresh = ""
     if left > 2.0:
-        t0 = time.monotonic()
+        t0 = clock.now()
         found = _fresh(sp, cands, left, seed)
         if found:
             v = found[0]
             return Changes(v, _changed(design, v.design),
                            f"no change of up to {MAX_CHANGES} values was found to pass: a new design with {transistor}")
-        fresh = f", nor a new design in {time.monotonic() - t0:.0f} s of search"
+        fresh = f", nor a new design in {clock.now() - t0:.0f} s of search"
     return Changes(None, [], f"no design with {transistor} found: no change of up to {MAX_CHANGES} values passed{fresh}"
                              f" (not a proof; stagefit design with transistors: [{transistor}] and topology:"
                              f" {design.topology} searches longer)")

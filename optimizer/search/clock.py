@@ -1,0 +1,110 @@
+"""The search's clock: seconds of work, counted the same way on every machine.
+
+A search told to stop after S seconds stops after S seconds of *work*: the analysis' count
+(:mod:`optimizer.analysis.work`, a cost per batched solve) plus the solver's deterministic
+time, each turned into seconds at a fixed rate. Every decision the search takes by the clock
+(when to stop a pass, how much time a topology gets, whether a verification still fits) then
+depends only on what was computed, so the same spec, stock and seed give the same answer on
+any machine. The rates were measured on the 2-core machine the project is developed on, set
+so that a second of the clock takes about a second there; a faster machine finishes sooner.
+
+The wall clock still bounds every search (``wall_limit``, by default the time limit itself),
+so the limit is honoured on a slower machine too; a search the wall clock stopped first says
+so (:func:`cut_short`), because its answer may then differ from a faster machine's.
+``wall_limit=None`` lifts the bound (the tests do, so that their answers are the same on any
+machine).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import time
+
+from ..analysis import work
+
+__all__ = ["now", "session", "limit", "run", "cut_short", "wall"]
+
+#: Analysis work units per second of the clock (fitted with the weights of
+#: :mod:`optimizer.analysis.work`: 8e8 units took about a second of wall time on the
+#: development machine).
+UNITS_PER_SECOND = 8.0e8
+#: Seconds of the clock per unit of the solver's deterministic time (the unit is meant to be
+#: about a second; measured: a relaxation search of the bundled street-duo-mixer spec took
+#: 35.7 s of wall time for 34.8 s of the clock, most of it the solver's).
+SECONDS_PER_DTIME = 1.0
+#: How far the clock jumps when the wall clock runs out: past every deadline, still finite.
+_JUMP = 1.0e6
+
+#: The solver's deterministic time so far, in millionths of its unit (a whole number, like
+#: the analysis' count, so that sums do not depend on their order).
+_solver_micro = 0
+_origin = (0, 0)
+_wall_end: float | None = None
+_cut = False
+_depth = 0
+
+
+def _counted() -> float:
+    # From the session's origin, in whole numbers first: the same reading at the same step
+    # of two runs, whatever ran before them in the process.
+    return (work.done() - _origin[0]) / UNITS_PER_SECOND + (_solver_micro - _origin[1]) * 1e-6 * SECONDS_PER_DTIME
+
+
+def now() -> float:
+    """Seconds of work done since the current session began (since the process started
+    outside one); past every deadline once the session's wall clock has run out."""
+    global _cut
+    t = _counted()
+    if _wall_end is not None and time.monotonic() > _wall_end:
+        _cut = True
+        return t + _JUMP
+    return t
+
+
+def wall() -> float:
+    """The wall clock (seconds), for reporting how long something took."""
+    return time.monotonic()
+
+
+@contextlib.contextmanager
+def session(wall_limit: float | None):
+    """Bound what runs inside by ``wall_limit`` seconds of wall time (None: unbounded).
+
+    Sessions nest: an inner one (a search started by another) keeps the outer bound."""
+    global _wall_end, _cut, _depth, _origin
+    outer = _depth > 0
+    if not outer:
+        _origin = (work.done(), _solver_micro)
+        _wall_end = None if wall_limit is None or wall_limit <= 0 else time.monotonic() + wall_limit
+        _cut = False
+    _depth += 1
+    try:
+        yield
+    finally:
+        _depth -= 1
+        if not outer:
+            _wall_end = None
+            _origin = (0, 0)
+
+
+def cut_short() -> bool:
+    """Whether the wall clock of the current (or last) session ran out before its work."""
+    return _cut
+
+
+def limit(params, seconds: float) -> None:
+    """Set a CP-SAT solver's limits: ``seconds`` of the clock as deterministic time, and the
+    wall time the session has left."""
+    params.max_deterministic_time = max(seconds, 0.0) / SECONDS_PER_DTIME
+    if _wall_end is not None:
+        params.max_time_in_seconds = max(_wall_end - time.monotonic(), 0.05)
+    else:
+        params.max_time_in_seconds = max(50.0 * seconds, 60.0)
+
+
+def run(solver, model, callback=None):
+    """``solver.solve(model, callback)``, with its deterministic time added to the clock."""
+    global _solver_micro
+    st = solver.solve(model, callback) if callback is not None else solver.solve(model)
+    _solver_micro += round(solver.response_proto.deterministic_time * 1e6)
+    return st
