@@ -195,9 +195,9 @@ def _fewest_changes(args, spec, design):
 
 
 def _wall_limit(args):
-    """``--wall-limit``: left out, the time limit; 0, no bound."""
+    """``--wall-limit``: left out, the default (twice the time limit); 0, no bound."""
     w = getattr(args, "wall_limit", None)
-    return "same" if w is None else (None if w <= 0 else w)
+    return "default" if w is None else (None if w <= 0 else w)
 
 
 def _substitute_json(args, sub) -> dict:

@@ -162,7 +162,7 @@ def search(
     seed: int | None = None,
     progress=None,
     workers: int = 1,
-    wall_limit: float | None | str = "same",
+    wall_limit: float | None | str = "default",
 ) -> SearchResult:
     """Find the best designs of the spec (see the module docstring).
 
@@ -182,11 +182,11 @@ def search(
         answer is the same whenever it is proved (the ranking is a total order).
     wall_limit
         Seconds of wall time after which the search stops whatever its clock says (by
-        default the time limit; None for no bound, which makes the answer the same on any
-        machine however slow).
+        default twice the time limit, :data:`.clock.WALL_FACTOR`; None for no bound, which
+        makes the answer the same on any machine however slow).
     """
     time_limit = time_limit if time_limit is not None else spec.search.time_limit
-    with clock.session(time_limit if wall_limit == "same" else wall_limit):
+    with clock.session(clock.wall_bound(time_limit, wall_limit)):
         r = _search(spec, stock, top, time_limit, seed, progress, workers)
     if clock.cut_short():
         r.notes.append("the wall clock ran out before the work budget (this machine is slower than the"

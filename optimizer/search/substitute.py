@@ -105,11 +105,11 @@ def _changed(design, new_design) -> list[tuple[str, str, str]]:
 
 
 def fewest_changes(spec, design, transistor: str, stock=None, time_limit: float = 60.0, seed: int = 1,
-                   wall_limit: float | None | str = "same") -> Changes:
+                   wall_limit: float | None | str = "default") -> Changes:
     """The design's values with the fewest changes that meet ``spec`` with ``transistor``
     (the module docstring has the two ways), within ``time_limit`` seconds of the search's
     clock and ``wall_limit`` seconds of wall time (as :func:`~.solve.search`)."""
-    with clock.session(time_limit if wall_limit == "same" else wall_limit):
+    with clock.session(clock.wall_bound(time_limit, wall_limit)):
         return _fewest_changes(spec, design, transistor, stock, time_limit, seed)
 
 
