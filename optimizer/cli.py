@@ -72,7 +72,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="with --transistor: seconds of search for the values to change (default 60)")
     p.add_argument("--wall-limit", type=float, metavar="S",
                    help="stop after S seconds of wall time whatever the time limit's clock says"
-                        " (default: twice the time limit; 0: no bound, the same answer on any machine)")
+                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
     _add_common(p)
 
     p = sub.add_parser("design", help="search standard values and stock for the best designs",
@@ -84,7 +84,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="seconds of search, counted as work (overrides search.time_limit)")
     p.add_argument("--wall-limit", type=float, metavar="S",
                    help="stop after S seconds of wall time whatever the time limit's clock says"
-                        " (default: twice the time limit; 0: no bound, the same answer on any machine)")
+                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
     p.add_argument("--seed", type=int, help="solver seed (overrides search.seed)")
     p.add_argument("--out", help="output folder (default outputs/<spec name>/)")
     p.add_argument("--force", action="store_true", help="overwrite files a previous run wrote there")
@@ -99,7 +99,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--time-limit", type=float, metavar="S", help="seconds of search per supply, counted as work")
     p.add_argument("--wall-limit", type=float, metavar="S",
                    help="stop after S seconds of wall time whatever the time limit's clock says"
-                        " (default: twice the time limit; 0: no bound, the same answer on any machine)")
+                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
     p.add_argument("--out", help="output folder (default outputs/<spec name>-compare/)")
     p.add_argument("--force", action="store_true", help="overwrite files a previous run wrote there")
     _add_common(p)

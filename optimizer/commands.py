@@ -195,7 +195,7 @@ def _fewest_changes(args, spec, design):
 
 
 def _wall_limit(args):
-    """``--wall-limit``: left out, the default (twice the time limit); 0, no bound."""
+    """``--wall-limit``: left out, the default (four times the time limit); 0, no bound."""
     w = getattr(args, "wall_limit", None)
     return "default" if w is None else (None if w <= 0 else w)
 

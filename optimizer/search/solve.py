@@ -182,7 +182,7 @@ def search(
         answer is the same whenever it is proved (the ranking is a total order).
     wall_limit
         Seconds of wall time after which the search stops whatever its clock says (by
-        default twice the time limit, :data:`.clock.WALL_FACTOR`; None for no bound, which
+        default four times the time limit, :data:`.clock.WALL_FACTOR`; None for no bound, which
         makes the answer the same on any machine however slow).
     """
     time_limit = time_limit if time_limit is not None else spec.search.time_limit
