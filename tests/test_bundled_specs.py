@@ -50,9 +50,10 @@ from optimizer.spec.specfile import load_spec
 ROOT = Path(__file__).resolve().parent.parent
 SPECS = ["street-duo-mixer", "classroom-line-stage", "rehearsal-line-driver"]
 
-#: Solver time limit per spec (s). About what each bundled spec needs to find its first
-#: design that passes every target on a busy 2-core machine (measured with divider-ce: 25–45 s); with
-#: three specs this file took 156 s. Only the top design is asked for.
+#: Time limit per spec, seconds of the search's clock (which counts work: the same answer on
+#: any machine, as the wall bound is lifted here). Enough for each of the three specs to find
+#: a design that passes every target; this file took about 200 s on a 2-core machine. Only
+#: the top design is asked for.
 TIME_LIMIT = 45
 
 needs_ngspice = pytest.mark.skipif(
