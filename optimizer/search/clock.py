@@ -25,15 +25,14 @@ import time
 
 from ..analysis import work
 
-__all__ = ["now", "session", "limit", "run", "cut_short", "wall"]
+__all__ = ["now", "session", "limit", "run", "cut_short", "wall", "wall_bound"]
 
 #: Analysis work units per second of the clock (fitted with the weights of
 #: :mod:`optimizer.analysis.work`: 8e8 units took about a second of wall time on the
 #: development machine).
 UNITS_PER_SECOND = 8.0e8
 #: Seconds of the clock per unit of the solver's deterministic time (the unit is meant to be
-#: about a second; measured: a relaxation search of the bundled street-duo-mixer spec took
-#: 35.7 s of wall time for 34.8 s of the clock, most of it the solver's).
+#: about a second, and is taken as one; it ran slower here, see ``WALL_FACTOR``).
 SECONDS_PER_DTIME = 1.0
 #: The wall-clock bound of a search, by default, as a multiple of its time limit. On the
 #: development machine the analysis' count kept within 0.7 to 1.2 s of wall time per second,
