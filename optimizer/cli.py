@@ -33,6 +33,12 @@ def _add_common(p: argparse.ArgumentParser, json_help: str = "print machine-read
     p.add_argument("--debug", action="store_true", help="show a traceback for internal errors")
 
 
+def _add_wall_limit(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--wall-limit", type=float, metavar="S",
+                   help="stop after S seconds of wall time whatever the time limit's clock says"
+                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="stagefit",
@@ -70,9 +76,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=1, help="seed of the Monte Carlo generator and the search (default 1)")
     p.add_argument("--time-limit", type=float, default=60.0, metavar="S",
                    help="with --transistor: seconds of search for the values to change (default 60)")
-    p.add_argument("--wall-limit", type=float, metavar="S",
-                   help="stop after S seconds of wall time whatever the time limit's clock says"
-                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
+    _add_wall_limit(p)
     _add_common(p)
 
     p = sub.add_parser("design", help="search standard values and stock for the best designs",
@@ -82,9 +86,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--top", type=int, help="how many designs to report (overrides search.top)")
     p.add_argument("--time-limit", type=float, metavar="S",
                    help="seconds of search, counted as work (overrides search.time_limit)")
-    p.add_argument("--wall-limit", type=float, metavar="S",
-                   help="stop after S seconds of wall time whatever the time limit's clock says"
-                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
+    _add_wall_limit(p)
     p.add_argument("--seed", type=int, help="solver seed (overrides search.seed)")
     p.add_argument("--out", help="output folder (default outputs/<spec name>/)")
     p.add_argument("--force", action="store_true", help="overwrite files a previous run wrote there")
@@ -97,9 +99,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--supply", nargs="+", required=True, metavar="V", help="nominal supplies, e.g. 5 9 12")
     p.add_argument("--stock", help="stock list (overrides parts.stock in the spec)")
     p.add_argument("--time-limit", type=float, metavar="S", help="seconds of search per supply, counted as work")
-    p.add_argument("--wall-limit", type=float, metavar="S",
-                   help="stop after S seconds of wall time whatever the time limit's clock says"
-                        " (default: four times the time limit; 0: no bound, the same answer on any machine)")
+    _add_wall_limit(p)
     p.add_argument("--out", help="output folder (default outputs/<spec name>-compare/)")
     p.add_argument("--force", action="store_true", help="overwrite files a previous run wrote there")
     _add_common(p)

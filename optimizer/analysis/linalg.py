@@ -43,12 +43,12 @@ def solve(A: np.ndarray, b: np.ndarray) -> np.ndarray:
     vec = b.ndim == A.ndim - 1
     if vec:
         b = b[:, None]
-    if n <= 3:
-        work.charge(work.cost(n, b.shape[1], int(np.prod(batch)) if batch else 1))
-        x = _cramer(A, b)
-        return x[:, 0] if vec else x
     k = b.shape[1]
     S = int(np.prod(batch)) if batch else 1
+    if n <= 3:
+        work.charge(work.cost(n, k, S))
+        x = _cramer(A, b)
+        return x[:, 0] if vec else x
     Ab = np.moveaxis(A.reshape(n, n, S), 2, 0)
     bb = np.moveaxis(b.reshape(n, k, S), 2, 0)
     x = work.solve(Ab, bb)

@@ -1,17 +1,18 @@
 """A count of the analysis' work, so that a search can stop at the same step on any machine.
 
-Every batched linear solve of the analysis goes through :func:`solve`, which adds an estimate
-of its cost to a running total: a fixed amount per call (the vector operations around each
-solve — stamping, device equations, transforms — whatever the batch) plus one per multiply-add of the factorisation and the substitutions. The total
-depends only on what was computed, never on how fast the machine computed it; the search's
-clock (:mod:`optimizer.search.clock`) turns it into seconds at a fixed rate.
+Every batched linear solve of the analysis goes through :func:`solve` (or charges
+:func:`cost`), which adds an estimate of its cost to a running total: a fixed amount per call
+and per system of the batch (the vector work around each solve: stamping, device equations,
+transforms) and a share per multiply-add of the factorisation and the substitutions. The
+total depends only on what was computed, never on how fast the machine computed it; the
+search's clock (:mod:`optimizer.search.clock`) turns it into seconds at a fixed rate.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["done", "solve", "charge"]
+__all__ = ["done", "solve", "charge", "cost", "tallies"]
 
 #: Units charged per call, per system of the batch and per multiply-add of the
 #: factorisation and substitutions (``n³/3 + n²k``). The three are fitted to the wall time

@@ -25,7 +25,7 @@ import time
 
 from ..analysis import work
 
-__all__ = ["now", "session", "limit", "run", "cut_short", "wall", "wall_bound"]
+__all__ = ["now", "session", "limit", "run", "cut_short", "wall_bound"]
 
 #: Analysis work units per second of the clock (fitted with the weights of
 #: :mod:`optimizer.analysis.work`: 8e8 units took about a second of wall time on the
@@ -73,11 +73,6 @@ def wall_bound(time_limit: float, wall_limit: float | None | str = "default") ->
     """The wall-clock bound of a search: ``wall_limit`` when given (None: no bound), else
     ``WALL_FACTOR`` times the time limit."""
     return WALL_FACTOR * time_limit if wall_limit == "default" else wall_limit
-
-
-def wall() -> float:
-    """The wall clock (seconds), for reporting how long something took."""
-    return time.monotonic()
 
 
 @contextlib.contextmanager

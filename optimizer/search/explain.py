@@ -11,7 +11,6 @@ no design can beat ("the gain can be at most …").
 from __future__ import annotations
 
 import math
-
 from dataclasses import dataclass
 
 from ortools.sat.python import cp_model
