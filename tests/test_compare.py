@@ -34,7 +34,7 @@ SPEC = ROOT / "specs" / "rehearsal-line-driver.yaml"
 SUPPLIES = [5.0, 9.0, 12.0]
 #: Time limit per supply, seconds of the search's clock (work, not wall time; the wall bound
 #: is lifted): enough for the 9 V and 12 V searches to find a design that passes every target.
-TIME_LIMIT = 20
+TIME_LIMIT = 10
 INFEASIBLE_SUPPLY = 3.0
 FIGURES = ["margin", "parts", "gain_db", "headroom_db", "input_impedance", "supply_current"]
 #: Target names the explanations may name: the spec's targets and the built-in active region.

@@ -450,7 +450,7 @@ def test_report_renders_in_a_headless_browser(written, tmp_path):
 def test_documents_of_a_real_search(spec, tmp_path):
     from optimizer.search.solve import search
 
-    r = search(spec, time_limit=20, wall_limit=None)
+    r = search(spec, time_limit=10, wall_limit=None)
     if r.designs:
         result = r
     elif r.near_misses:
