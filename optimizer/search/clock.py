@@ -25,7 +25,7 @@ import time
 
 from ..analysis import work
 
-__all__ = ["now", "session", "limit", "run", "cut_short", "wall_bound"]
+__all__ = ["now", "counted", "session", "limit", "run", "cut_short", "wall_bound"]
 
 #: Analysis work units per second of the clock (fitted with the weights of
 #: :mod:`optimizer.analysis.work`: 8e8 units took about a second of wall time on the
@@ -67,6 +67,12 @@ def now() -> float:
         _cut = True
         return t + _JUMP
     return t
+
+
+def counted() -> float:
+    """Seconds of work done since the current session began, as :func:`now` reads them but
+    without its jump once the wall clock has run out: the figure to report."""
+    return _counted()
 
 
 def wall_bound(time_limit: float, wall_limit: float | None | str = "default") -> float | None:
