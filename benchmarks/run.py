@@ -767,6 +767,7 @@ def part_growth(quick: bool, out: Out, seed: int, stock_dir: str | None) -> dict
             cands = build_candidates(spec, TOPOLOGY, stock)
         except FileProblems as err:  # a small generated stock list may lack a role's values
             runs.append({"axis": axis, "value": value, "status": "no candidates", "seconds": 0.0, "time_limit": limit,
+                         "work_seconds": None, "wall_cut": False,
                          "over_limit_seconds": 0.0, "best_margin": None, "bound": None, "designs": 0, "items": 0,
                          "combinations": 0.0, "solves": None, "verified": None, "inputs": len(spec.inputs),
                          "series": spec.parts.resistor_series, "reason": str(err).splitlines()[-1].strip()})

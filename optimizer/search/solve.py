@@ -44,6 +44,10 @@ _WORKERS = 1
 TIE = 0.005
 #: How many of the solutions found in one solve are verified.
 VERIFY_PER_ROUND = 4
+#: Seconds of the search's clock one verification is taken to cost until one has been timed
+#: (measured on the growth benchmark's mixer: two-input designs 0.5 to 1.0 s each, one-input
+#: ones 1.8 s each in a batch of four).
+PRIOR_VERIFY_SECONDS = 1.5
 #: Targets the capacitors hardly touch once they meet the sizing rule (X ≤ ρ·R at 1 kHz),
 #: with how much they can move them at most (nepers). A design that misses one of these by
 #: more than that fails for its resistors and transistor alone, so all its capacitor
@@ -413,10 +417,14 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
             offsets = {k: v / 2 for k, v in offsets.items()}
             continue
         proposals = []
+        # No more verifications than fit before the deadline (at least one), so that a short
+        # time limit is not overrun by a whole round's.
+        fits = int((deadline - clock.now()) / (per_design or PRIOR_VERIFY_SECONDS))
+        per_round = min(VERIFY_PER_ROUND, max(fits, 1))
         for u, ch in reversed(coll.found):  # best first
             cuts.append(ch)
             key = _values_key(cands, ch)
-            if key in seen or len(proposals) >= VERIFY_PER_ROUND:
+            if key in seen or len(proposals) >= per_round:
                 continue
             seen.add(key)
             proposals.append((u, ch))
