@@ -68,10 +68,6 @@ DIRS = {
 
 
 RHO_INV = 10  # 1/ρ
-#: Margins (nepers) at which the bypass section's rows are laid down (see
-#: StageModel._bypass_cutoff); between rungs the model keeps the lower one's (optimistic).
-BYPASS_LADDER = (0.0, 0.02, 0.04, 0.07, 0.1, 0.14, 0.18, 0.23, 0.3, 0.4, 0.5, 0.65, 0.8, 1.0, 1.3, 1.6, 2.0, 2.5, 3.0)
-BYPASS_D = 1000
 
 
 def bypass_re_min(spec: Spec) -> float:
@@ -438,7 +434,7 @@ class StageModel:
         for lit, dc in zip(self.tr, devs):
             bt = int(math.floor(dc.beta_lo)) + 1
             m.add(bt * rsb.expr <= rsrc.expr + 2 * bt).only_enforce_if(lit)
-        q["rsb"], q["rsrc"] = rsb, rsrc
+        q["rsb"] = rsb
         # Load conductance g_L = 1/RC + 1/RL, plus 1/ro and the output capacitor at HI.
         g_rl = int(round(K / _r(spec.load.resistance)))
         dcoll = dirs["collector"]
@@ -669,79 +665,31 @@ class StageModel:
         """The bypass section's own −3 dB point, a lower bound of the whole response's.
 
         With a = re + RE1 + Rs'/(β+1) in series and b = RE2 bypassed by C, the section's gain
-        ratio is a/|a + b/(1 + jωbC)|; with y = 1 + (ωbC)², |a + b/(1 + jωbC)|² = a² +
-        (2ab + b²)/y, so the ratio is at least 1/√2 exactly when a ≥ b·(1 + √(1 + y))/y. The bound
-        is taken where the analysis always looks and a is smallest: the highest supply, β and
-        temperature, with every part at the end that raises the low corner (the analysis
-        evaluates that vertex of the tolerance box, so C is at its low end and RE2 anywhere in
-        its range: need(b) rises then falls, so the least need is at one of its ends). There
-        the current is at least LO's
-        (so re is at most LO's times VT(hot)/VT(cold)), RE1 at most its top end, and Rs' at
-        most (1 + t)/(1 − t) times LO's (LO takes the bias resistors at the ends it needs for
-        the least current), divided by β + 1 with β at least the HI corner's low end. A
-        margin t asks the same at fmax·e^(−t); the rows are laid down on a
-        ladder of margins (:data:`BYPASS_LADDER`, and the floor of the search's round, see
-        :meth:`floor_rows`), each enforced once the margin reaches its rung.
+        ratio is a/|a + b/(1 + jωbC)| ≥ 1/√2 only if b ≤ (√2 − 1)·a·(1 + (ωbC)²). At the
+        target frequency this must hold (at margin 0; the margin itself is not applied here).
         """
-        m, b, lo, hi = self.m, self.b, self.q["LO"], self.q["HI"]
-        tb = max((it.tolerance for role in ("bias_top", "bias_bottom") for it in self.slot[(role, None)].items),
-                 default=0.0)
-        grow = (1 + tb) / (1 - tb)
-        # Rs'/(β+1) with β at least the HI corner's low end: Rs' ≤ grow × LO's.
-        rsrc, g1000 = lo["rsrc"], int(math.ceil(grow * 1000))
-        bmin = int(math.floor(min(dc.beta_lo for dc in hi["devs"]))) + 1
-        rsb_hi = b.var(0, g1000 * rsrc.hi // (1000 * bmin) + 3, "Rs'/beta HI")
-        for lit, dc in zip(self.tr, hi["devs"]):
-            bt = int(math.floor(dc.beta_lo)) + 1
-            m.add(1000 * bt * rsb_hi.expr <= g1000 * rsrc.expr + 2000 * bt).only_enforce_if(lit)
-        # D·a bounded above (integer units of 0.1 Ω / D): re at most LO's times VT(hot)/VT(cold).
-        vt_ratio = hi["vt_u"] / lo["vt_u"]
-        self._bypass_a = (int(math.ceil(BYPASS_D * vt_ratio)) * lo["re"].expr + BYPASS_D * (lo["RE1"] + 2).expr
-                          + BYPASS_D * rsb_hi.expr)
-        U = self.U("low cutoff")
-        for t in BYPASS_LADDER:
-            if t > self.t_cap + 1e-9:
-                break
-            if t == 0.0:
-                self._bypass_rows(0.0, [])
-                continue
-            rung = m.new_bool_var(f"bypass rung {t:g}")
-            # u ≥ S·e^t forces the rung (a margin at or above it must pass its rows).
-            m.add(U.expr <= int(math.ceil(S * math.exp(t))) - 1).only_enforce_if(rung.Not())
-            self._bypass_rows(t, [rung])
-
-    def _bypass_rows(self, t: float, also: list) -> None:
-        """The bypass section within 3 dB at fmax·e^(−t − offset): one row per capacitor,
-        linear in RE2's choice (see :meth:`_bypass_cutoff`)."""
-        if not self.has("bypass_cap") or self.spec.targets.low_cutoff_max is None:
-            return
-        w = 2 * math.pi * self.spec.targets.low_cutoff_max * math.exp(-t - self.offset.get("low cutoff", 0.0))
+        m, b, lo = self.m, self.b, self.q["LO"]
+        fmax = self.spec.targets.low_cutoff_max
+        w = 2 * math.pi * fmax
+        rsb = lo["rsb"]
+        a_up = b.fix(lo["re"] + lo["RE1"] + rsb + 2, "a_up")
+        # Dividing by b: the section stays within 3 dB iff a ≥ 1/((√2 − 1)(1/b + (ωC)²·b)),
+        # a constant for each (RE2, C_E) pair; one row per capacitor, linear in RE2's choice.
         re2_items = self.slot[("emitter_bypassed", None)].items
         re2_x = self.x[("emitter_bypassed", None)]
         for it, bvar in zip(self.slot[("bypass_cap", None)].items, self.x[("bypass_cap", None)]):
             if it.absent:
                 continue
-            c_lo = it.value * (1 - it.tolerance)
-
-            def need_at(bo: float) -> float:
-                y = 1 + (w * bo * c_lo) ** 2
-                return bo * (1 + math.sqrt(1 + y)) / y
-
+            cval = it.value * (1 + it.tolerance)  # the largest capacitance: the easiest case
             need = []
             for r_it in re2_items:
                 if r_it.absent:
                     need.append(0)
                     continue
-                # need(b) rises then falls: its least over RE2's range is at one end.
-                lo_need = min(need_at(r_it.value * (1 - r_it.tolerance)), need_at(r_it.value * (1 + r_it.tolerance)))
-                need.append(int(math.floor(BYPASS_D * R_U * lo_need)))
-            self.row(self.m.add(self._bypass_a >= sum(n_ * x_ for n_, x_ in zip(need, re2_x) if n_)),
-                     "low cutoff", [bvar, *also])
-
-    def floor_rows(self, floor: float) -> None:
-        """The rows of a margin the search already demands (its round's floor), exactly."""
-        if floor > 0 and hasattr(self, "_bypass_a"):
-            self._bypass_rows(min(floor, self.t_cap), [])
+                bo = r_it.value * (1 + r_it.tolerance)
+                f = (math.sqrt(2) - 1) * (1 / bo + (w * cval) ** 2 * bo)
+                need.append(int(math.floor(R_U / f)))
+            self.row(m.add(a_up.expr >= sum(n_ * x_ for n_, x_ in zip(need, re2_x) if n_)), "low cutoff", [bvar])
 
     def _zout(self) -> None:
         """Zout ≥ RC∥ro ≥ RC·VAF/(VAF + VCC) (ro ≥ VAF/IC and IC·RC ≤ VCC)."""

@@ -155,7 +155,6 @@ def _model(spec: Spec, cands: Candidates, cuts: list[Choice], floor: float | Non
         sm.forbid_core(ch.as_dict(), ch.transistor)
     if floor is not None:
         sm.m.add(sm.u.expr >= int(math.ceil(S * math.exp(floor))))
-        sm.floor_rows(floor)
     return sm
 
 
@@ -332,10 +331,9 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     # learned from the analysis (the model is optimistic; the offsets absorb how much).
     # Only the model without offsets proves anything.
     offsets = dict(PRIOR_OFFSET)
-    # The capacitors on one input's path (its coupling capacitor, the bypass and the output
-    # capacitor) add their corners (the whole response's −3 dB point is about the
-    # root-sum-square of theirs): start the low-cutoff offset at ln √n.
-    n_caps = 1 + sum(1 for s_ in cands.slots if s_.role.name in ("bypass_cap", "output_cap"))
+    # Several coupling capacitors add their corners (the whole response's −3 dB point is at
+    # least the root-sum-square of theirs): start the low-cutoff offset at ln √n.
+    n_caps = sum(1 for s_ in cands.slots if s_.role.kind == "C")
     offsets["low cutoff"] = max(offsets["low cutoff"], 0.5 * math.log(max(n_caps, 1)))
     status, bound = "feasible", None
     best = None
@@ -351,18 +349,13 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     loop_end = deadline - reserve
     per_design = 0.0  # the longest verification seen, seconds per design
 
-    # Verifications the end may run per reported design besides the trim's: one with stock
-    # parts swapped in (when there is a stock list) and one for the large-signal figures
-    # (when the targets did not already need them).
-    end_checks = (cands.stock is not None) + (not needs_large_signal(spec))
-
     def final_need() -> float:
         # Time the end needs (with a third to spare): the polish (a solve of up to 2 s and one
         # verification), the capacitor trim (a short solve and a verification per design)
-        # and the end's own verifications (end_checks). It must cover what the trim asks for
-        # below once the polish has run, or the trim is skipped.
+        # and re-verifying the reported designs with stock parts swapped in. It must cover
+        # what the trim asks for below once the polish has run, or the trim is skipped.
         n = min(top, len(_passing(verified)))
-        return 1.3 * (per_design * ((1 + end_checks) * n + 2) + (n + 1) * 1.0 + 2.0) if n else 0.0
+        return 1.3 * (per_design * (2 * n + 2) + (n + 1) * 1.0 + 2.0) if n else 0.0
 
     while (clock.now() < min(loop_end, deadline - final_need())
            and (best is None or clock.now() < polish_at)):
