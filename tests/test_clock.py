@@ -1,5 +1,5 @@
-"""The search's clock counts work, so a search cut short by its limit answers the same way on
-any machine; the wall clock still bounds it.
+"""The search's clock counts work, so a search cut short by its limit answers the same way
+however fast the machine; the wall clock still bounds it.
 
 The reference here is the search itself run twice (same spec, seed and budget) and the
 analysis' own count of its solves; what is checked is that nothing the search decides reads

@@ -5,7 +5,9 @@ A search told to stop after S seconds stops after S seconds of *work*: the analy
 time, each turned into seconds at a fixed rate. Every decision the search takes by the clock
 (when to stop a pass, how much time a topology gets, whether a verification still fits) then
 depends only on what was computed, so the same spec, stock and seed give the same answer on
-any machine. The rates were measured on the 2-core machine the project is developed on, set
+a faster or slower machine. (Not always on another kind of processor: the analysis' loops
+run until their last point converges, which can turn on the last bits of a figure, and those
+differ between processors and maths libraries; README, "Known limits".) The rates were measured on the 2-core machine the project is developed on, set
 so that a second of the analysis' work takes about a second there; the solver's unit is
 taken as a second, though it ran slower there (see ``WALL_FACTOR``). A faster machine
 finishes sooner.

@@ -178,7 +178,7 @@ def search(
         A stock list (overrides the spec's).
     top, time_limit, seed
         Override the spec's ``search`` settings. ``time_limit`` is seconds of work on the
-        search's clock (:mod:`.clock`), the same on any machine.
+        search's clock (:mod:`.clock`), the same however fast the machine.
     progress
         Called with a short text as the search goes (for a terminal), or None.
     workers
@@ -187,7 +187,7 @@ def search(
     wall_limit
         Seconds of wall time after which the search stops whatever its clock says (by
         default four times the time limit, :data:`.clock.WALL_FACTOR`; None for no bound, which
-        makes the answer the same on any machine however slow).
+        makes the answer the same however slow the machine).
     """
     time_limit = time_limit if time_limit is not None else spec.search.time_limit
     with clock.session(clock.wall_bound(time_limit, wall_limit)):
