@@ -141,3 +141,49 @@ def test_model_never_below_the_analysis_on_random_designs():
         for t in v.targets:
             if t.name in model and t.margin >= 0:
                 assert model[t.name] >= min(t.margin, cap) - 2e-3, (t.name, model[t.name], t.margin)
+
+
+def test_capacitor_rows_never_above_the_analysis_at_their_edge():
+    """The model's low-corner rows for each capacitor are relaxations where they matter: on
+    stages whose low corner one capacitor sets (the others at their largest; 5 % resistors,
+    20 % capacitors), swept over that capacitor's values, the model's low-cutoff margin is
+    never below the analysis'. Reference: the analysis engine (itself checked against ngspice
+    in tests/test_vs_ngspice.py). The input and output capacitors' rows are also tight there
+    (measured: 0.02 to 0.12 neper above the analysis), so this fails if either is loosened
+    into uselessness; the bypass capacitor's row is loose (it stays at the model's cap, see
+    README "Known limits"), so only its safe side is checked. The base designs are resistor
+    sets the search proposed for this spec."""
+    spec = load_spec(DATA / "cap-edge.yaml")
+    cands = build_candidates(spec, "divider-ce")
+    cap = StageModel(spec, cands).t_cap
+    bases = [  # bias_top, bias_bottom, collector, emitter, emitter_bypassed, input_series (Ω)
+        (220e3, 120e3, 2.7e3, 330.0, 1.2e3, 270e3),
+        (150e3, 120e3, 2.2e3, 330.0, 1.8e3, 270e3),
+        (33e3, 27e3, 1.8e3, 390.0, 1.8e3, 33e3),
+    ]
+    roles = ("bias_top", "bias_bottom", "collector", "emitter", "emitter_bypassed", "input_series")
+    caps = ("input_cap", "bypass_cap", "output_cap")
+
+    def key(role):
+        return role, 1 if role in ("input_series", "input_cap") else None
+
+    def index(role, value):
+        items = cands.slot(*key(role)).items
+        return min(range(len(items)), key=lambda i: abs(math.log(max(items[i].value, 1e-30) / value)))
+
+    slack = {c: [] for c in caps}
+    for base in bases:
+        pick = {key(r): index(r, v) for r, v in zip(roles, base)}
+        pick.update({key(c): len(cands.slot(*key(c)).items) - 1 for c in caps})
+        for c in caps:
+            first = 1 if c == "bypass_cap" else 0  # index 0 of the bypass slot is "absent"
+            picks = [{**pick, key(c): j} for j in range(first, len(cands.slot(*key(c)).items))]
+            for p, v in zip(picks, verify(spec, cands, [Choice.of(p, 0) for p in picks])):
+                got = {t.name: t.margin for t in v.targets}
+                if got["active region"] < 0 or not 0 <= got["low cutoff"] < cap - 0.2:
+                    continue
+                model = model_margins(spec, cands, p, 0)["low cutoff"]
+                assert model >= got["low cutoff"] - 2e-3, (c, p, model, got["low cutoff"])
+                slack[c].append(model - got["low cutoff"])
+    assert all(len(s) >= 9 for s in slack.values()), {c: len(s) for c, s in slack.items()}
+    assert max(slack["input_cap"]) < 0.2 and max(slack["output_cap"]) < 0.2, slack
