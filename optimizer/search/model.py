@@ -763,14 +763,17 @@ class StageModel:
         return pick, tr
 
 
-def model_margins(spec: Spec, cands: Candidates, pick: dict, transistor: int, time_limit: float = 10.0) -> dict:
-    """The model's own margin for each target, with every decision fixed to a choice.
+def model_margins(spec: Spec, cands: Candidates, pick: dict, transistor: int, time_limit: float = 10.0,
+                  names=None) -> dict:
+    """The model's own margin for each target (or for those in ``names``), with every
+    decision fixed to a choice.
 
     Used to check that the model never says less than the analysis (it is a relaxation).
     Returns target name → margin (nepers); −inf where the model has no solution.
     """
     out = {}
-    names = StageModel(spec, cands).on.keys()
+    if names is None:
+        names = StageModel(spec, cands).on.keys()
     for name in names:
         sm = StageModel(spec, cands)
         for key, xs in sm.x.items():
