@@ -780,7 +780,8 @@ def part_growth(quick: bool, out: Out, seed: int, stock_dir: str | None) -> dict
         runs.append({"axis": axis, "value": value, "status": r.status, "seconds": t, "time_limit": limit,
                      "work_seconds": work_s, "wall_cut": clock.cut_short(),
                      # The limit counts work (the search's clock), so the overrun does too.
-                     "over_limit_seconds": max(0.0, (work_s if work_s is not None else t) - limit), "best_margin": r.designs[0].margin if r.designs else None,
+                     "over_limit_seconds": max(0.0, (work_s if work_s is not None else t) - limit),
+                     "best_margin": r.designs[0].margin if r.designs else None,
                      "bound": r.bound, "designs": len(r.designs), "items": sum(len(s.items) for s in cands.slots),
                      "combinations": cands.size(), "solves": r.stats.get("solves"), "verified": r.stats.get("verified"),
                      "inputs": len(spec.inputs), "series": spec.parts.resistor_series})
