@@ -8,9 +8,9 @@ depends only on what was computed, so the same spec, stock and seed give the sam
 a faster or slower machine. (Not always on another kind of processor: the analysis' loops
 run until their last point converges, which can turn on the last bits of a figure, and those
 differ between processors and maths libraries; README, "Known limits".) The rates were
-measured on the 2-core machine the project is developed on, set so that a second of the analysis' work takes about a second there; the solver's unit is
-taken as a second, though it ran slower there (see ``WALL_FACTOR``). A faster machine
-finishes sooner.
+measured on the 2-core machine the project is developed on, set so that a second of the
+analysis' work takes about a second there; the solver's unit is taken as a second, though it
+ran slower there (see ``WALL_FACTOR``). A faster machine finishes sooner.
 
 The wall clock still bounds every search (``wall_limit``, by default ``WALL_FACTOR`` times the
 time limit), so a slower machine cannot run on without end; a search the wall clock stopped
