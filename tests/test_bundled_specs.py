@@ -52,8 +52,9 @@ SPECS = ["street-duo-mixer", "classroom-line-stage", "rehearsal-line-driver"]
 
 #: Time limit per spec, seconds of the search's clock (which counts work: the same answer
 #: however fast the machine, as the wall bound is lifted here; these three also answered the
-#: same on a second kind of processor, see README "Known limits"). Enough for each of the three specs to find
-#: a design that passes every target (measured: 15 s found one for each); this file takes
+#: same on a second kind of processor, see README "Known limits"). Enough for each of the
+#: three specs to find a design that passes every target (measured: 15 s found one for
+#: each); this file takes
 #: about 2 minutes on a 2-core machine. Only the top design is asked for.
 TIME_LIMIT = 15
 
