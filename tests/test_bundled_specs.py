@@ -54,8 +54,8 @@ SPECS = ["street-duo-mixer", "classroom-line-stage", "rehearsal-line-driver"]
 #: however fast the machine, as the wall bound is lifted here; these three also answered the
 #: same on a second kind of processor, see README "Known limits"). Enough for each of the
 #: three specs to find a design that passes every target (measured: 15 s found one for
-#: each); this file takes
-#: about 2 minutes on a 2-core machine. Only the top design is asked for.
+#: each); this file takes about 2 minutes on a 2-core machine. Only the top design is asked
+#: for.
 TIME_LIMIT = 15
 
 needs_ngspice = pytest.mark.skipif(
