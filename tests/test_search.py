@@ -163,21 +163,18 @@ def test_capacitor_rows_never_above_the_analysis_at_their_edge():
     ]
     roles = ("bias_top", "bias_bottom", "collector", "emitter", "emitter_bypassed", "input_series")
     caps = ("input_cap", "bypass_cap", "output_cap")
-
-    def key(role):
-        return role, 1 if role in ("input_series", "input_cap") else None
+    slot = {s.role.name: s for s in cands.slots}  # one input: one slot per role
 
     def index(role, value):
-        items = cands.slot(*key(role)).items
+        items = slot[role].items
         return min(range(len(items)), key=lambda i: abs(math.log(max(items[i].value, 1e-30) / value)))
 
     slack = {c: [] for c in caps}
     for base in bases:
-        pick = {key(r): index(r, v) for r, v in zip(roles, base)}
-        pick.update({key(c): len(cands.slot(*key(c)).items) - 1 for c in caps})
+        pick = {slot[r].key: index(r, v) for r, v in zip(roles, base)}
+        pick.update({slot[c].key: len(slot[c].items) - 1 for c in caps})
         for c in caps:
-            first = 1 if c == "bypass_cap" else 0  # index 0 of the bypass slot is "absent"
-            picks = [{**pick, key(c): j} for j in range(first, len(cands.slot(*key(c)).items))]
+            picks = [{**pick, slot[c].key: j} for j, it in enumerate(slot[c].items) if not it.absent]
             for p, v in zip(picks, verify(spec, cands, [Choice.of(p, 0) for p in picks])):
                 got = {t.name: t.margin for t in v.targets}
                 if got["active region"] < 0 or not 0 <= got["low cutoff"] < cap - 0.2:
