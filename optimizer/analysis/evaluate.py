@@ -115,6 +115,23 @@ def _batch_at(circuits: list[Circuit], points: list[tuple[int, dict, dict]]) -> 
     return b
 
 
+#: A change of a figure smaller than this fraction of it (or than ``_NO_CHANGE_ABS`` in its
+#: SI unit, for a figure near 0, such as a gain of 0 dB), when one part moves to a tolerance
+#: end, counts as none: its sign is rounding, which differs between processors, and would
+#: pick another vertex (and another batch) there.
+_NO_CHANGE = 1e-9
+_NO_CHANGE_ABS = 1e-15
+
+
+def _signed(deltas, v0) -> np.ndarray:
+    """``deltas`` with NaN, ±inf and the changes too small to have a sign (see
+    :data:`_NO_CHANGE`) as 0."""
+    d = np.nan_to_num(np.asarray(deltas, float), nan=0.0, posinf=0.0, neginf=0.0)
+    with np.errstate(invalid="ignore"):
+        floor = _NO_CHANGE * np.nan_to_num(np.abs(v0), nan=0.0, posinf=0.0) + _NO_CHANGE_ABS
+    return np.where(np.abs(d) <= floor, 0.0, d)
+
+
 def small_figures(net: Network, batch: Batch, corners: bool = True, steps: int = 10) -> tuple[dict[str, np.ndarray], object]:
     """Every small-signal figure of a batch, as (B,) arrays keyed by name.
 
@@ -270,7 +287,7 @@ def analyse_many(designs: list, circuits: list[Circuit] | None = None, large_sig
                 v0 = vals[name][base]
                 with np.errstate(invalid="ignore"):
                     deltas = np.array([vals[name][base + 1 + j] - v0 for j in range(len(parts))])
-                deltas = np.nan_to_num(deltas, nan=0.0, posinf=0.0, neginf=0.0)
+                deltas = _signed(deltas, v0)
                 for d in _direction(name):
                     sgn = np.sign(deltas) * (1 if d == "max" else -1)
                     dev = {r: float(s_) * conds[i].tolerance[r] for r, s_ in zip(parts, sgn) if s_ != 0}
@@ -354,7 +371,7 @@ def _large(ans: list[Analysis], net: Network, circuits, conds, nom, glob, level,
         for gi, g in enumerate(glob[i]):
             base = start + 1 + gi * stride
             with np.errstate(invalid="ignore"):
-                dlt = np.nan_to_num(sw[base + 1 : base + stride] - sw[base], nan=0.0, posinf=0.0, neginf=0.0)
+                dlt = _signed(sw[base + 1 : base + stride] - sw[base], sw[base])
             dev = {r: -float(np.sign(x)) * conds[i].tolerance[r] for r, x in zip(core[i], dlt) if np.sign(x) != 0}
             vpts.append((i, g, dev))
     swv = swings(vpts) if vpts else np.zeros(0)

@@ -114,7 +114,7 @@ def judge(an, spec) -> list[TargetResult]:
         if what == "headroom":
             nom = t.headroom_nominal
             out.append(TargetResult("headroom", f"≥ {t.headroom_min:g} dB above nominal",
-                                    20 * math.log10(an.large["swing"] / nom), 20 * math.log10(max(sw, 1e-12) / nom), "dB",
+                                    20 * math.log10(max(an.large["swing"], 1e-12) / nom), 20 * math.log10(max(sw, 1e-12) / nom), "dB",
                                     _ln(sw, need), an.large_corner.get("swing", "")))
         else:
             out.append(TargetResult("swing", f"≥ {need:.3g} V peak", an.large["swing"], sw, "V", _ln(sw, need),

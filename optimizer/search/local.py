@@ -223,7 +223,10 @@ class _Screen:
             batch.values[self.ref[s.key]] = X[rep, j]
         for q in self.points[0]["beta"]:
             batch.beta[q] = np.array([p["beta"][q] for p in pts])
-        op = self.net.operating_point(batch)
+        # A design whose operating point is not found at some point screens as −inf (the
+        # others of the batch keep theirs: no batch is re-run for one design).
+        op = self.net.operating_point(batch, strict=False)
+        ok = np.ones(B, bool) if op.converged is None else op.converged.reshape(B, P).all(axis=1)
         mb = fig.midband(self.net, op)
         c = self.circuit
         vals: dict[str, np.ndarray] = {"supply_current": op.supply_current, "output_impedance": np.abs(mb.zout)}
@@ -242,12 +245,14 @@ class _Screen:
                 vals[f"crosstalk_db:{k + 1}"] = 20 * np.log10(np.maximum(np.max(mb.crosstalk[k], axis=0), 1e-30))
         # Swing estimate: the clip limits at the lowest supply (every temperature and beta end).
         swing = None
-        if with_swing:
-            at_min = np.nonzero(batch.supply <= self.vmin + 1e-9)[0]
+        at_min = np.nonzero((batch.supply <= self.vmin + 1e-9) & ok[rep])[0]
+        if with_swing and not at_min.size:
+            swing = np.zeros(B)
+        elif with_swing:
             sub = op.batch.take(at_min)
-            opm = self.net.operating_point(sub)
+            opm = self.net.operating_point(sub, strict=False)
             gm = np.abs(fig.midband(self.net, opm).gain[0])
-            cl = clip_limits(self.net, opm, gain=gm, points=21)
+            cl = clip_limits(self.net, opm, gain=gm, points=21, strict=False)
             est = SWING_FRACTION * np.minimum(np.nan_to_num(cl.up, nan=0.0), np.nan_to_num(cl.down, nan=0.0))
             # And the swing at the THD limit (harmonic balance with fewer harmonics) at the
             # same points.
@@ -257,6 +262,9 @@ class _Screen:
             np.minimum.at(swing, rep[at_min], est)
         res = np.empty(B)
         for b in range(B):
+            if not ok[b]:
+                res[b] = -np.inf
+                continue
             sl = slice(b * P, (b + 1) * P)
             nominal = {k: float(v[sl][0]) for k, v in vals.items()}
             low = {k: float(np.min(v[sl])) for k, v in vals.items()}
