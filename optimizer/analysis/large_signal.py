@@ -285,11 +285,6 @@ class _HB:
 
 def harmonic_balance(net: Network, op: OperatingPoint, drive_input: int, amplitude, H: int = _H_DEFAULT) -> SignalResult:
     """Periodic steady state at one drive amplitude per variant (V peak at the EMF)."""
-    with work.fixed("harmonic balance", len(net.ports) * (2 * H + 1), 1, op.batch.size):
-        return _harmonic_balance(net, op, drive_input, amplitude, H)
-
-
-def _harmonic_balance(net: Network, op: OperatingPoint, drive_input: int, amplitude, H: int = _H_DEFAULT) -> SignalResult:
     hb = _HB(net, op, drive_input, H)
     amp = np.broadcast_to(np.asarray(amplitude, float), (op.batch.size,)).astype(float)
     u = hb.dc_start()
@@ -412,11 +407,6 @@ def swing_at_thd(net: Network, op: OperatingPoint, thd_limit, drive_input: int =
     ``gain`` (linear, source EMF to load) sets the first guess; it is computed if absent.
     Returns (swing (B,), result at that drive).
     """
-    with work.fixed("swing at THD", len(net.ports) * (2 * H + 1), 1, op.batch.size):
-        return _swing_at_thd(net, op, thd_limit, drive_input, gain, H)
-
-
-def _swing_at_thd(net: Network, op: OperatingPoint, thd_limit, drive_input: int = 1, gain=None, H: int = _H_DEFAULT):
     hb = _HB(net, op, drive_input, H)
     B = op.batch.size
     limit = np.broadcast_to(np.asarray(thd_limit, float), (B,))
@@ -430,11 +420,6 @@ def _swing_at_thd(net: Network, op: OperatingPoint, thd_limit, drive_input: int 
 
 def thd_at_level(net: Network, op: OperatingPoint, level, drive_input: int = 1, gain=None, H: int = _H_DEFAULT):
     """THD (fraction) when the fundamental at the load is ``level`` volts peak, per variant."""
-    with work.fixed("THD at level", len(net.ports) * (2 * H + 1), 1, op.batch.size):
-        return _thd_at_level(net, op, level, drive_input, gain, H)
-
-
-def _thd_at_level(net: Network, op: OperatingPoint, level, drive_input: int = 1, gain=None, H: int = _H_DEFAULT):
     hb = _HB(net, op, drive_input, H)
     B = op.batch.size
     level = np.broadcast_to(np.asarray(level, float), (B,))
@@ -465,12 +450,6 @@ def clip_limits(net: Network, op: OperatingPoint, drive_input: int = 1, gain=Non
 
     With ``strict`` False a variant whose quiescent point the sweep cannot find gets NaN
     limits (no swing) instead of the whole batch raising :class:`ConvergenceError`."""
-    with work.fixed("clip sweep", len(net.ports), 1, op.batch.size * points):
-        return _clip_limits(net, op, drive_input, gain, points, strict)
-
-
-def _clip_limits(net: Network, op: OperatingPoint, drive_input: int = 1, gain=None, points: int = 61,
-                strict: bool = True) -> ClipLimits:
     batch = op.batch
     B = batch.size
     # Coupling and bypass capacitors hold their charge over a cycle; the load's own

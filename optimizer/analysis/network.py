@@ -25,7 +25,6 @@ from ..circuit.netlist import GROUND, Circuit
 from ..errors import CircuitError, ConvergenceError
 from . import bjt as dev
 from . import linalg
-from . import work
 
 __all__ = ["ACResult", "Batch", "Network", "OperatingPoint", "POT_END_RESISTANCE"]
 
@@ -316,10 +315,6 @@ class Network:
         ConvergenceError
             If some variant does not converge even with supply stepping (``strict`` only).
         """
-        with work.fixed("operating point", len(self.ports), 1, batch.size):
-            return self._operating_point(batch, frozen, fixed, start, max_iter, strict)
-
-    def _operating_point(self, batch, frozen, fixed, start, max_iter, strict) -> OperatingPoint:
         B = batch.size
         vx = self.fixed_dc(batch) if fixed is None else fixed
         G = _stamp(self.conductances(batch), self.rpairs, self.N)
