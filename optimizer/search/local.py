@@ -258,6 +258,8 @@ class _Screen:
             # same points.
             thd_sw, _ = swing_at_thd(self.net, opm, self.design.thd_limit, gain=gm, H=SCREEN_HARMONICS)
             est = np.minimum(est, np.nan_to_num(thd_sw, nan=0.0))
+            if opm.converged is not None:  # found once, lost when solved again: no swing claimed
+                est = np.where(opm.converged, est, 0.0)
             swing = np.full(B, np.inf)
             np.minimum.at(swing, rep[at_min], est)
         res = np.empty(B)
