@@ -327,6 +327,10 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     verified: list[Verified] = []
     failed: list[Verified] = []
     cuts: list[Choice] = []
+    # The cuts of designs that were verified (the same values): only these may leave a design
+    # out of a proof. The proposals' model also cuts the other solutions a solve found, so
+    # that it moves on; a proof that fails for one of those puts them back.
+    vcuts: list[Choice] = []
     # Proposals come from the model with each target's limits made stricter by an offset
     # learned from the analysis (the model is optimistic; the offsets absorb how much).
     # Only the model without offsets proves anything.
@@ -381,13 +385,19 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         stats["solves"] += 1
         relaxed = not any(v > 0.002 for v in offsets.values())
         if st == cp_model.INFEASIBLE:
-            if relaxed or _proved_none_above(spec, cands, cuts, floor, seed, left, chunk, core_cuts):
+            complete = len(vcuts) == len(cuts)
+            proved = (relaxed and complete) or _proved_none_above(spec, cands, vcuts, floor, seed, left, chunk,
+                                                                  core_cuts)
+            if not proved and relaxed and not complete:
+                cuts = list(vcuts)  # a design cut unseen may reach the floor: put them back
+                continue
+            if proved:
                 if best is None:
                     # No design can meet every target (none not yet tried can, and every one
                     # tried failed): confirmed a second way (presolve on), since the solver has
                     # known wrong-answer bugs.
                     say("no design can meet every target; confirming with presolve on")
-                    sm2 = _model(spec, cands, cuts, 0.0, None, core_cuts)
+                    sm2 = _model(spec, cands, vcuts, 0.0, None, core_cuts)
                     st2 = clock.run(_solver(seed, min(max(left(), 5.0), 20.0), presolve=True), sm2.m)
                     stats["solves"] += 1
                     if st2 != cp_model.INFEASIBLE:
@@ -424,9 +434,13 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
         for u, ch in reversed(coll.found):  # best first
             cuts.append(ch)
             key = _values_key(cands, ch)
-            if key in seen or len(proposals) >= per_round:
+            if key in seen:
+                vcuts.append(ch)  # the same values were verified: the margin is known
                 continue
+            if len(proposals) >= per_round:
+                continue  # cut unseen (steering only: a proof leaves it out of its cuts)
             seen.add(key)
+            vcuts.append(ch)
             proposals.append((u, ch))
         if not proposals:
             continue
