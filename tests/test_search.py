@@ -217,3 +217,16 @@ def test_a_proof_leaves_out_only_designs_that_were_verified(monkeypatch, path):
     for cut in proofs:
         unseen = [k for k in cut if k not in looked]
         assert not unseen, f"a proof left out {len(unseen)} designs that were never verified"
+
+
+def test_an_answer_is_bounded_only_when_every_topology_searched_is(tiny2):
+    """tiny2 with divider-ce (the relaxation: proved) beside ce-follower (the neighbourhood
+    model: never proved). The answer's ``bound`` says no unlisted design has a margin above
+    it, which the ce-follower search cannot say of its own designs: the answer has none.
+    (It once took the proved topology's bound, +0.000 on the piezo preamp, whose listed
+    designs had +0.14.)"""
+    spec = dataclasses.replace(tiny2, topologies=("divider-ce", "ce-follower"))
+    r = search(spec, time_limit=20.0, wall_limit=None)
+    assert r.stats["divider-ce"]["status"] == "optimal", r.stats
+    assert r.stats["ce-follower"]["status"] == "feasible", r.stats
+    assert r.bound is None, r.bound

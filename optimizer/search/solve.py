@@ -252,8 +252,11 @@ def _search(spec, stock, top, time_limit, seed, progress, workers) -> SearchResu
         status = "optimal"
     else:
         status = "feasible"
+    # A bound holds for the whole answer only when every topology searched has one (a
+    # topology the neighbourhood model searched, or one cut short, bounds nothing).
+    bounds = [r.bound for r in results]
     merged = SearchResult(status, designs, "+".join(r.topology for r in results),
-                          bound=max((r.bound for r in results if r.bound is not None), default=None),
+                          bound=max(bounds) if bounds and None not in bounds else None,
                           conflicts=[replace(c, text=f"{r.topology}: {c.text}") for r in results for c in r.conflicts],
                           near_misses=sorted([d for r in results for d in r.near_misses], key=rank_key)[:3])
     for r in results:
