@@ -78,6 +78,9 @@ class SearchResult:
     notes: list[str] = field(default_factory=list)
     stats: dict = field(default_factory=dict)
     candidates: Candidates | None = None
+    #: What a bound needs of a relaxation search: its verified cuts, core cuts and the
+    #: largest margin it verified (None for the other searches).
+    relaxation: tuple | None = field(default=None, repr=False)
 
 
 def _simplicity(v: Verified) -> tuple:
@@ -241,7 +244,10 @@ def _search(spec, stock, top, time_limit, seed, progress, workers) -> SearchResu
             results.append(_search_local(spec, cands, top, share, seed, say, start))
     # Across topologies: the best designs of all, ranked together.
     if len(results) == 1 and not skipped:
-        return results[0]
+        r = results[0]
+        if r.status == "feasible" and r.relaxation is not None:
+            r.bound = _feasible_bound(spec, r, seed, deadline)
+        return r
     designs = rank([d for r in results for d in r.designs])[:top]
     statuses = [r.status for r in results]
     if all(s == "infeasible" for s in statuses):
@@ -492,8 +498,37 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
     stats["work_seconds"] = round(clock.counted() - start, 2)
     stats["offsets"] = {k: round(v, 3) for k, v in offsets.items()}
     res = SearchResult(status, designs, cands.topology, bound=bound, near_misses=sorted(failed, key=rank_key)[:3],
-                       notes=notes, stats=stats, candidates=cands)
+                       notes=notes, stats=stats, candidates=cands,
+                       relaxation=(list(vcuts), list(core_cuts), max((v.margin for v in verified + failed),
+                                                                     default=-math.inf)))
     return res
+
+
+#: The longest the relaxation is solved for a time-limited answer's bound (seconds of the
+#: clock; only what is left of the limit is used).
+BOUND_SECONDS = 2.0
+
+
+def _feasible_bound(spec, r: SearchResult, seed: int, deadline: float) -> float | None:
+    """For an answer the time limit cut short: a margin no unlisted design can exceed.
+
+    The relaxation (no offsets, only the cuts of verified designs) is solved for its largest
+    margin in the time left; its proven objective bound covers every design it was not cut
+    from, and every cut one was verified. None when no time is left or the solver says
+    nothing (an infeasible relaxation is not taken on one solve's word)."""
+    left = deadline - clock.now()
+    if left < 0.2:
+        return None
+    vcuts, core_cuts, verified_best = r.relaxation
+    sm = _model(spec, r.candidates, vcuts, None, None, core_cuts)
+    sm.m.maximize(sm.u.expr)
+    solver = _solver(seed, min(left, BOUND_SECONDS))
+    st = clock.run(solver, sm.m)
+    r.stats["solves"] = r.stats.get("solves", 0) + 1
+    if st not in (cp_model.OPTIMAL, cp_model.FEASIBLE, cp_model.UNKNOWN):
+        return None
+    relax = math.log(max(solver.best_objective_bound, 1.0) / S)
+    return max(relax, verified_best, *(d.margin for d in r.designs))
 
 
 def learn_offsets(offsets: dict[str, float], v: Verified, t_m: float, floor: float) -> None:
