@@ -509,7 +509,7 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
 
 #: The longest the relaxation is solved for a time-limited answer's bound (seconds of the
 #: clock; only what is left of the limit is used).
-BOUND_SECONDS = 2.0
+BOUND_SECONDS = 0.5
 
 
 def _feasible_bound(spec, r: SearchResult, seed: int, deadline: float) -> float | None:
