@@ -127,8 +127,7 @@ def _signed(deltas, v0) -> np.ndarray:
     """``deltas`` with NaN, ±inf and the changes too small to have a sign (see
     :data:`_NO_CHANGE`) as 0."""
     d = np.nan_to_num(np.asarray(deltas, float), nan=0.0, posinf=0.0, neginf=0.0)
-    with np.errstate(invalid="ignore"):
-        floor = _NO_CHANGE * np.nan_to_num(np.abs(v0), nan=0.0, posinf=0.0) + _NO_CHANGE_ABS
+    floor = _NO_CHANGE * np.nan_to_num(np.abs(v0), nan=0.0, posinf=0.0) + _NO_CHANGE_ABS
     return np.where(np.abs(d) <= floor, 0.0, d)
 
 

@@ -245,10 +245,12 @@ class _Screen:
                 vals[f"crosstalk_db:{k + 1}"] = 20 * np.log10(np.maximum(np.max(mb.crosstalk[k], axis=0), 1e-30))
         # Swing estimate: the clip limits at the lowest supply (every temperature and beta end).
         swing = None
-        at_min = np.nonzero((batch.supply <= self.vmin + 1e-9) & ok[rep])[0]
-        if with_swing and not at_min.size:
-            swing = np.zeros(B)
-        elif with_swing:
+        if with_swing:
+            # Only designs whose every point converged (the others screen as −inf below);
+            # each has points at the lowest supply, so none are left only when none converged.
+            swing = np.full(B, np.inf)
+            at_min = np.nonzero((batch.supply <= self.vmin + 1e-9) & ok[rep])[0]
+        if with_swing and at_min.size:
             sub = op.batch.take(at_min)
             opm = self.net.operating_point(sub, strict=False)
             gm = np.abs(fig.midband(self.net, opm).gain[0])
@@ -260,7 +262,6 @@ class _Screen:
             est = np.minimum(est, np.nan_to_num(thd_sw, nan=0.0))
             if opm.converged is not None:  # found once, lost when solved again: no swing claimed
                 est = np.where(opm.converged, est, 0.0)
-            swing = np.full(B, np.inf)
             np.minimum.at(swing, rep[at_min], est)
         res = np.empty(B)
         for b in range(B):
