@@ -83,6 +83,57 @@ def test_infeasible_spec_is_proved_and_its_conflict_named(tiny2, tiny2_enumerate
     assert best_true <= gain.margin + 1e-9
 
 
+def test_an_impossible_spec_is_proved_with_presolve_when_the_plain_proof_runs_out(monkeypatch, tiny2):
+    """When the relaxation's proof without presolve runs out of time before any design has
+    passed, the proof is tried with presolve, and an infeasibility found that way is
+    confirmed without it (the solver has known wrong-answer bugs: one setting's word is not
+    taken alone). Here the plain proof is made to run out; the spec is the 9..15 dB variant
+    of tiny2 that the test above proves infeasible (its enumeration has no design passing)."""
+    from optimizer.search import solve
+
+    spec = dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
+    real = solve._proved_none_above
+    ways = []
+
+    def proof_(*a, presolve=False, **k):
+        ways.append(presolve)
+        return None if not presolve else real(*a, presolve=presolve, **k)
+
+    monkeypatch.setattr(solve, "_proved_none_above", proof_)
+    said = []
+    r = search(spec, wall_limit=None, progress=said.append)
+    assert r.status == "infeasible", (r.status, r.notes)
+    assert True in ways and ways[0] is False, ways
+    assert any("confirming with presolve off" in s_ for s_ in said), said
+    assert {c.target for c in r.conflicts} >= {"gain"}
+
+
+def test_the_nearest_value_bisected_agrees_with_the_maximum(monkeypatch, tiny2, tiny2_enumerated):
+    """When maximising a conflicting target's margin is not settled in its share of the time,
+    the explanation bisects on yes-or-no solves. Its answer is then at most RESOLUTION above
+    the maximum (the same relaxation solved outright, as the explanation does when it can),
+    never below it, and no real design beats it (reference: the enumeration of the space,
+    judged against the spec)."""
+    from ortools.sat.python import cp_model
+
+    from optimizer.search import explain as ex
+
+    spec = dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
+    cands = build_candidates(spec, "divider-ce")
+    exact = ex._nearest(spec, cands, "gain", None, 1, 10.0)
+    real_run = ex.clock.run
+
+    def run(solver, m, *a, **k):  # the maximisation "runs out of time"; the rest is real
+        return cp_model.UNKNOWN if m.has_objective() else real_run(solver, m, *a, **k)
+
+    monkeypatch.setattr(ex.clock, "run", run)
+    bisected = ex._nearest(spec, cands, "gain", None, 1, 10.0)
+    assert -3 < exact < 0, exact
+    assert exact - 2e-3 <= bisected <= exact + ex.RESOLUTION + 2e-3, (exact, bisected)
+    best_true = max(min(t.margin for t in judge(v.analysis, spec)) for v in tiny2_enumerated)
+    assert best_true <= bisected + 1e-9
+
+
 def test_same_answer_twice_and_with_more_workers(tiny2, tiny2_result):
     again = search(tiny2, wall_limit=None)
     more = search(tiny2, workers=2, wall_limit=None)

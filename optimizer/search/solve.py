@@ -3,7 +3,8 @@
 1. The relaxation (:class:`~optimizer.search.model.StageModel`) is asked for designs with
    every target met at margin ≥ 0 (proposals with each target tightened by a learned offset).
    When the relaxation itself (no offsets) has no design left that was not tried and failed —
-   confirmed a second time with presolve on, since the solver has known wrong-answer bugs —
+   confirmed a second time with presolve set the other way, since the solver has known
+   wrong-answer bugs —
    no design can meet the spec, and the answer names the conflicting targets
    (:mod:`optimizer.search.explain`).
 2. Each round the model maximises the common margin (with the offsets) above a floor: the
@@ -400,20 +401,29 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
             complete = len(vcuts) == len(cuts)
             proved = (relaxed and complete) or _proved_none_above(spec, cands, vcuts, floor, seed, left, chunk,
                                                                   core_cuts)
+            presolved = False
+            if proved is None and best is None:
+                # Out of time without presolve, and nothing passed yet: presolve often settles
+                # an impossible spec at once (a 5 V stage asked 30 dB with 7.5 dB of headroom:
+                # 0.8 s with it, 5.5 s without); the other setting then confirms.
+                proved = _proved_none_above(spec, cands, vcuts, floor, seed, left, chunk, core_cuts, presolve=True)
+                presolved = bool(proved)
             if not proved and relaxed and not complete:
                 cuts = list(vcuts)  # a design cut unseen may reach the floor: put them back
                 continue
             if proved:
                 if best is None:
                     # No design can meet every target (none not yet tried can, and every one
-                    # tried failed): confirmed a second way (presolve on), since the solver has
-                    # known wrong-answer bugs.
-                    say("no design can meet every target; confirming with presolve on")
+                    # tried failed): confirmed a second way (presolve on when it was proved
+                    # without, off when with), since the solver has known wrong-answer bugs.
+                    other = "off" if presolved else "on"
+                    say(f"no design can meet every target; confirming with presolve {other}")
                     sm2 = _model(spec, cands, vcuts, 0.0, None, core_cuts)
-                    st2 = clock.run(_solver(seed, min(max(left(), 5.0), 20.0), presolve=True), sm2.m)
+                    st2 = clock.run(_solver(seed, min(max(left(), 5.0), 20.0), presolve=not presolved), sm2.m)
                     stats["solves"] += 1
                     if st2 != cp_model.INFEASIBLE:
-                        why = ("the solver's two answers disagreed (infeasible without presolve, not with it)"
+                        why = (f"the solver's two answers disagreed (infeasible with presolve {'on' if presolved else 'off'}, "
+                               f"not with it {other})"
                                if st2 in (cp_model.OPTIMAL, cp_model.FEASIBLE) else
                                "time ran out while confirming that no design can meet the spec")
                         return SearchResult("unknown", [], cands.topology, stats=stats, candidates=cands,
@@ -422,9 +432,13 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
                     from .explain import explain
 
                     conflicts = explain(spec, cands, seed, deadline)
+                    notes = ["proved infeasible twice (without and with presolve)"]
+                    if not conflicts:
+                        notes.append("which targets conflict was not found in the time left (a longer "
+                                     "--time-limit leaves more)")
                     return SearchResult("infeasible", [], cands.topology, bound=0.0, conflicts=conflicts,
                                         stats=stats, candidates=cands, near_misses=sorted(failed, key=rank_key)[:3],
-                                        notes=["proved infeasible twice (without and with presolve)"])
+                                        notes=notes)
                 if not best_proved:
                     best_proved, bound, status = True, floor, "optimal"
                     if top > 1:
@@ -656,11 +670,15 @@ def _values_key(cands: Candidates, ch: Choice) -> tuple:
     return (ch.transistor, vals)
 
 
-def _proved_none_above(spec, cands, cuts, floor, seed, left, chunk, core_cuts=()) -> bool:
-    """Does the relaxation prove that no design outside ``cuts`` reaches margin ``floor``?"""
+def _proved_none_above(spec, cands, cuts, floor, seed, left, chunk, core_cuts=(), presolve=False) -> bool | None:
+    """Does the relaxation prove that no design outside ``cuts`` reaches margin ``floor``?
+
+    True: proved; False: the relaxation has such a design; None: time ran out first."""
     sm = _model(spec, cands, cuts, floor, None, core_cuts)
-    st = clock.run(_solver(seed, min(left(), chunk)), sm.m)
-    return st == cp_model.INFEASIBLE
+    st = clock.run(_solver(seed, min(left(), chunk), presolve=presolve), sm.m)
+    if st == cp_model.INFEASIBLE:
+        return True
+    return False if st in (cp_model.OPTIMAL, cp_model.FEASIBLE) else None
 
 
 def _passing(vs: list[Verified]) -> list[Verified]:
