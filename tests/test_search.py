@@ -305,3 +305,14 @@ def test_a_short_limit_still_searches_and_bounds_the_whole_space(tiny2, tiny2_en
     best = max(v.margin for v in tiny2_enumerated)
     assert r.bound is not None and r.bound >= best - 1e-12, (r.bound, best)
     assert r.stats["work_seconds"] <= 3.0
+
+
+def test_an_infeasible_answer_always_carries_its_conflicts_key():
+    """The issue pins `conflicts` in the JSON of an infeasible answer; when the explanation
+    found nothing in the time left it is an empty list (and a note says so), not missing."""
+    from optimizer.outputs.results import result_json
+    from optimizer.search.solve import SearchResult
+
+    empty = SearchResult("infeasible", [], "divider-ce", bound=0.0, notes=["proved infeasible twice"])
+    assert result_json(empty)["conflicts"] == []
+    assert "conflicts" not in result_json(SearchResult("unknown", [], "divider-ce"))

@@ -88,7 +88,7 @@ def result_json(result, ratings_of=None) -> dict:
         "notes": list(result.notes),
         "stats": result.stats,
     }
-    if result.conflicts:
+    if result.conflicts or result.status == "infeasible":  # empty when none was found in time
         out["conflicts"] = [c.to_json() for c in result.conflicts]
     if result.near_misses and not result.designs:
         out["near_misses"] = [{"margin": _f(v.margin), "failing": [t.name for t in v.targets if not t.passed]}
