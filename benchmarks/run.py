@@ -743,10 +743,12 @@ def stock_csv(n: int, seed: int) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _with_inputs(spec, n: int):
+def _with_inputs(spec, n: int, series: str | None = None):
+    """``spec`` with n copies of its first input (and its resistors from ``series``)."""
     first = spec.inputs[0]
     inputs = tuple(InputSpec(f"in{k}", first.source_resistance, first.max_level, False) for k in range(1, n + 1))
-    return dataclasses.replace(spec, inputs=inputs)
+    spec = dataclasses.replace(spec, inputs=inputs)
+    return spec if series is None else dataclasses.replace(spec, parts=dataclasses.replace(spec.parts, resistor_series=series))
 
 
 def part_growth(quick: bool, out: Out, seed: int, stock_dir: str | None) -> dict:
@@ -790,7 +792,7 @@ def part_growth(quick: bool, out: Out, seed: int, stock_dir: str | None) -> dict
 
     two = _with_inputs(base, 2)
     for s in series:
-        one("series", s, dataclasses.replace(two, parts=dataclasses.replace(two.parts, resistor_series=s)))
+        one("series", s, _with_inputs(base, 2, s))
     for n in inputs:
         one("inputs", n, _with_inputs(base, n))
     for n in stocks:
@@ -829,8 +831,7 @@ def part_targets(out: Out) -> dict:
              ("16 inputs solved within 30 s", 16, "E12", 30.0, ("optimal", "feasible"))]
     runs = []
     for what, n, series, limit, ok in cases:
-        spec = _with_inputs(base, n)
-        spec = dataclasses.replace(spec, parts=dataclasses.replace(spec.parts, resistor_series=series))
+        spec = _with_inputs(base, n, series)
         t0 = time.perf_counter()
         r = search(spec, top=spec.search.top, time_limit=limit)
         t = time.perf_counter() - t0

@@ -416,14 +416,13 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
                     # No design can meet every target (none not yet tried can, and every one
                     # tried failed): confirmed a second way (presolve on when it was proved
                     # without, off when with), since the solver has known wrong-answer bugs.
-                    other = "off" if presolved else "on"
+                    first, other = ("on", "off") if presolved else ("off", "on")
                     say(f"no design can meet every target; confirming with presolve {other}")
                     sm2 = _model(spec, cands, vcuts, 0.0, None, core_cuts)
                     st2 = clock.run(_solver(seed, min(max(left(), 5.0), 20.0), presolve=not presolved), sm2.m)
                     stats["solves"] += 1
                     if st2 != cp_model.INFEASIBLE:
-                        why = (f"the solver's two answers disagreed (infeasible with presolve {'on' if presolved else 'off'}, "
-                               f"not with it {other})"
+                        why = (f"the solver's two answers disagreed (infeasible with presolve {first}, not with it {other})"
                                if st2 in (cp_model.OPTIMAL, cp_model.FEASIBLE) else
                                "time ran out while confirming that no design can meet the spec")
                         return SearchResult("unknown", [], cands.topology, stats=stats, candidates=cands,
