@@ -67,8 +67,13 @@ def test_reported_designs_pass_an_independent_analysis(tiny2, tiny2_result):
         assert design_margin(res) == pytest.approx(v.margin, abs=1e-9)
 
 
+def _too_much_gain(tiny2):
+    """tiny2 asked 9..15 dB: no design of its space meets that (its enumeration has none)."""
+    return dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
+
+
 def test_infeasible_spec_is_proved_and_its_conflict_named(tiny2, tiny2_enumerated):
-    spec = dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
+    spec = _too_much_gain(tiny2)
     r = search(spec, wall_limit=None)
     assert r.status == "infeasible"
     assert r.designs == []
@@ -91,7 +96,7 @@ def test_an_impossible_spec_is_proved_with_presolve_when_the_plain_proof_runs_ou
     of tiny2 that the test above proves infeasible (its enumeration has no design passing)."""
     from optimizer.search import solve
 
-    spec = dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
+    spec = _too_much_gain(tiny2)
     real = solve._proved_none_above
     ways = []
 
@@ -118,7 +123,7 @@ def test_the_nearest_value_bisected_agrees_with_the_maximum(monkeypatch, tiny2, 
 
     from optimizer.search import explain as ex
 
-    spec = dataclasses.replace(tiny2, targets=dataclasses.replace(tiny2.targets, gain=GainTarget(9.0, 15.0)))
+    spec = _too_much_gain(tiny2)
     cands = build_candidates(spec, "divider-ce")
     exact = ex._nearest(spec, cands, "gain", None, 1, 10.0)
     real_run = ex.clock.run
