@@ -125,14 +125,14 @@ def test_the_nearest_value_bisected_agrees_with_the_maximum(monkeypatch, tiny2, 
 
     spec = _too_much_gain(tiny2)
     cands = build_candidates(spec, "divider-ce")
-    exact = ex._nearest(spec, cands, "gain", None, 1, 10.0)
+    exact = ex._nearest(spec, cands, "gain", 1, 10.0)
     real_run = ex.clock.run
 
     def run(solver, m, *a, **k):  # the maximisation "runs out of time"; the rest is real
         return cp_model.UNKNOWN if m.has_objective() else real_run(solver, m, *a, **k)
 
     monkeypatch.setattr(ex.clock, "run", run)
-    bisected = ex._nearest(spec, cands, "gain", None, 1, 10.0)
+    bisected = ex._nearest(spec, cands, "gain", 1, 10.0)
     assert -3 < exact < 0, exact
     assert exact - 2e-3 <= bisected <= exact + ex.RESOLUTION + 2e-3, (exact, bisected)
     best_true = max(min(t.margin for t in judge(v.analysis, spec)) for v in tiny2_enumerated)

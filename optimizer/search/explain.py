@@ -90,7 +90,7 @@ def explain(spec: Spec, cands: Candidates, seed: int, deadline: float) -> list[C
     out, settled = [], False
     for k, name in enumerate(sorted(core)):
         left = end - clock.now()
-        t = _nearest(spec, cands, name, core, seed, max(min(10.0, left / (len(core) - k)), 0.2))
+        t = _nearest(spec, cands, name, seed, max(min(10.0, left / (len(core) - k)), 0.2))
         settled = settled or t is not None
         out.append(_describe(spec, name, t))
     # Every target of the spec "in conflict, not determined" says nothing: leave it out.
@@ -107,7 +107,7 @@ RESOLUTION = 0.02
 MAXIMISE_SHARE = 0.3
 
 
-def _nearest(spec, cands, name, core, seed, seconds) -> float | None:
+def _nearest(spec, cands, name, seed, seconds) -> float | None:
     """A margin the target cannot beat with the other targets of the spec at margin ≥ 0.
 
     First the target's margin is maximised with the others met (a share of the time): when
