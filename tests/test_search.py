@@ -321,3 +321,30 @@ def test_an_infeasible_answer_always_carries_its_conflicts_key():
     empty = SearchResult("infeasible", [], "divider-ce", bound=0.0, notes=["proved infeasible twice"])
     assert result_json(empty)["conflicts"] == []
     assert "conflicts" not in result_json(SearchResult("unknown", [], "divider-ce"))
+
+
+def test_an_answer_with_no_design_always_carries_its_near_misses_key():
+    """README ("What `stagefit design` writes"): `near_misses` is there whenever there is no
+    design, an empty list when no design was verified at all."""
+    from optimizer.outputs.results import result_json
+    from optimizer.search.solve import SearchResult
+
+    assert result_json(SearchResult("unknown", [], "cb-sum"))["near_misses"] == []
+    assert result_json(SearchResult("infeasible", [], "divider-ce", bound=0.0))["near_misses"] == []
+
+
+def test_stock_only_names_a_listed_transistor_it_leaves_out(tmp_path):
+    """With `use: stock-only` a type listed under parts.transistors that the stock list does
+    not hold cannot be used; the answer says so instead of dropping it silently."""
+    stock = tmp_path / "drawer.csv"
+    lines = ["kind,value,quantity"] + [f"resistor,{v},4" for v in ("2K2", "4K7", "10K", "22K")]
+    lines += ["capacitor,100u,4", "transistor,2N3904,1"]
+    stock.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    text = (DATA / "tiny2.yaml").read_text(encoding="utf-8")
+    text = text.replace("  transistors: [2N3904]", f"  transistors: [2N3904, BC547B]\n  stock: {stock}\n  use: stock-only")
+    spec_path = tmp_path / "s.yaml"
+    spec_path.write_text(text, encoding="utf-8")
+    r = search(load_spec(spec_path), time_limit=30, wall_limit=None)
+    assert r.designs and all(v.design.transistor == "2N3904" for v in r.designs)
+    assert any(n.startswith("BC547B: listed under parts.transistors but not in the stock list") for n in r.notes), r.notes
+    assert not any(n.startswith("2N3904:") for n in r.notes), r.notes

@@ -21,7 +21,7 @@ import numpy as np
 
 from ..physics import BOLTZMANN, CHARGE
 
-__all__ = ["GMIN", "DeviceParams", "capacitances", "currents", "pnjlim", "temperature_params"]
+__all__ = ["GMIN", "DeviceParams", "capacitances", "charges", "currents", "pnjlim", "temperature_params"]
 
 #: Conductance across each junction, as SPICE adds by default (S).
 GMIN = 1e-12
@@ -106,6 +106,30 @@ def _depletion(c0, v, vj, mj, fc):
     f3 = 1.0 - fc * (1.0 + mj)
     above = c0 / f2 * (f3 + mj * v / vj)
     return np.where(v < fcv, below, above)
+
+
+def _depletion_charge(c0, v, vj, mj, fc):
+    """The depletion charge whose derivative is :func:`_depletion` (zero at v = 0)."""
+    fcv = fc * vj
+    below = c0 * vj * (1.0 - np.power(np.maximum(1.0 - v / vj, 1e-12), 1.0 - mj)) / (1.0 - mj)
+    f2 = (1.0 - fc) ** (1.0 + mj)
+    f3 = 1.0 - fc * (1.0 + mj)
+    at_fc = c0 * vj * (1.0 - (1.0 - fc) ** (1.0 - mj)) / (1.0 - mj)
+    above = at_fc + c0 / f2 * (f3 * (v - fcv) + mj / (2.0 * vj) * (v * v - fcv * fcv))
+    return np.where(v < fcv, below, above)
+
+
+def charges(p: DeviceParams, vbe, vbc):
+    """The junctions' stored charges (NPN sense): base–emitter (diffusion TF·i_be·(1 − vbc/VAF)
+    when forward biased, TF·i_be otherwise, plus depletion) and base–collector (depletion).
+    Their derivatives are :func:`capacitances`."""
+    ebe, _ = _exp(vbe / p.vt)
+    ibe = p.is_ * (ebe - 1.0) + GMIN * vbe
+    inv_qb = 1.0 - vbc / p.vaf
+    qdiff = np.where(vbe > 0, p.tf * ibe * inv_qb, p.tf * ibe)
+    qbe = qdiff + _depletion_charge(p.cje, vbe, p.vje, p.mje, p.fc)
+    qbc = _depletion_charge(p.cjc, vbc, p.vjc, p.mjc, p.fc)
+    return qbe, qbc
 
 
 def capacitances(p: DeviceParams, vbe, vbc):

@@ -90,7 +90,7 @@ def result_json(result, ratings_of=None) -> dict:
     }
     if result.conflicts or result.status == "infeasible":  # empty when none was found in time
         out["conflicts"] = [c.to_json() for c in result.conflicts]
-    if result.near_misses and not result.designs:
+    if not result.designs:  # an empty list when no design was verified at all
         out["near_misses"] = [{"margin": _f(v.margin), "failing": [t.name for t in v.targets if not t.passed]}
                               for v in result.near_misses]
     return out

@@ -53,6 +53,7 @@ from ..circuit.build import build_circuit
 from ..errors import ConvergenceError
 from . import clock
 from .candidates import Candidates, RoleSlot
+from .solve import UNTRIMMED
 from .verify import Choice, Verified, design_of, needs_large_signal, verify
 
 __all__ = ["local_search", "structures", "triage"]
@@ -449,10 +450,13 @@ def local_search(spec, cands: Candidates, top: int, deadline: float, seed: int, 
                 if misses >= MISSES:  # the table's near neighbours fail alike: a fresh pass is better
                     break
     good = sorted(verified, key=lambda v: -v.margin)[:top]
+    trimmed = not good
     if good and clock.now() < deadline:
-        good = _trim(spec, cands, good, stats, deadline)
+        good, trimmed = _trim(spec, cands, good, stats, deadline)
     notes = [f"{cands.topology}: searched by the neighbourhood table model ({stats['structures']} structures,"
              f" {stats['passes']} pass{'es' if stats['passes'] != 1 else ''}, {stats['screened']} designs screened); not proved best"]
+    if not trimmed:
+        notes.append(f"{cands.topology}: {UNTRIMMED}")
     return {"designs": good, "failed": sorted(failed, key=lambda v: -v.margin)[:3], "notes": notes, "stats": stats}
 
 
@@ -507,11 +511,12 @@ def _solve_table(sc: _Screen, options, rows, tm, cut, seed, t, stats):
     return k, Choice.of(pick, sc.tr)
 
 
-def _trim(spec, cands: Candidates, designs: list[Verified], stats, deadline: float) -> list[Verified]:
+def _trim(spec, cands: Candidates, designs: list[Verified], stats, deadline: float) -> tuple[list[Verified], bool]:
     """The smallest common capacitor value (each capacitor's nearest candidate) that keeps
     each design's margin within TIE, found by bisection over the candidate values (a smaller
     capacitor only raises the low corner). The designs are bisected side by side, each step
-    of all of them verified in one batch; no step is begun that would end past the deadline."""
+    of all of them verified in one batch; no step is begun that would end past the deadline.
+    Returns the designs and whether every bisection ended before the deadline."""
     caps = [s for s in cands.slots if s.role.kind == "C"]
     common = sorted({it.value for s in caps for it in s.items if not it.absent})
     state = []  # per design: [best, pick, fitted, vals, lo, hi, need]
@@ -542,4 +547,4 @@ def _trim(spec, cands: Candidates, designs: list[Verified], stats, deadline: flo
                 st[0], st[5] = v, mid - 1
             else:
                 st[4] = mid + 1
-    return [st[0] for st in state]
+    return [st[0] for st in state], all(st[4] > st[5] for st in state)

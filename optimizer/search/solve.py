@@ -213,9 +213,13 @@ def _search(spec, stock, top, time_limit, seed, progress, workers) -> SearchResu
     results = []
     topologies = list(spec.topologies)
     all_cands = {t: build_candidates(spec, t, stock) for t in topologies}
-    skipped, score = [], {}
+    kept = {nm for c in all_cands.values() for nm, _ in c.transistors}
+    skipped = [f"{nm}: listed under parts.transistors but not in the stock list, so use: stock-only leaves it out"
+               for nm in dict.fromkeys(spec.parts.transistors) if nm not in kept]
+    score = {}
     if len(topologies) > 1:
-        topologies, skipped, score = _share_out(spec, all_cands, seed, say)
+        topologies, left_out, score = _share_out(spec, all_cands, seed, say)
+        skipped += left_out
     # The relaxation's topologies (which can prove what they find) get half the time, unless
     # the quick look puts them well behind another.
     others = sum(1 for t in topologies if t not in RELAXATION_TOPOLOGIES)
@@ -244,10 +248,11 @@ def _search(spec, stock, top, time_limit, seed, progress, workers) -> SearchResu
         else:
             results.append(_search_local(spec, cands, top, share, seed, say, start))
     # Across topologies: the best designs of all, ranked together.
-    if len(results) == 1 and not skipped:
+    if len(results) == 1 and len(topologies) == len(spec.topologies):
         r = results[0]
         if r.status == "feasible" and r.relaxation is not None:
             r.bound = _feasible_bound(spec, r, seed, deadline)
+        r.notes += skipped
         return r
     designs = rank([d for r in results for d in r.designs])[:top]
     statuses = [r.status for r in results]
@@ -495,13 +500,17 @@ def _search_topology(spec: Spec, cands: Candidates, top: int, deadline: float, s
             (verified if v.margin >= 0 else failed).append(v)
     good = _distinct(rank(_passing(verified)))
     designs = good[:top]
+    untrimmed = False
     if designs and left() > 1.3 * len(designs) * (2 * per_design + 1.0):
-        designs = _trim_capacitors(spec, cands, designs, offsets, seed, left,
-                                   lambda: 1.3 * len(designs) * per_design, stats)
+        designs, trimmed = _trim_capacitors(spec, cands, designs, offsets, seed, left,
+                                            lambda: 1.3 * len(designs) * per_design, stats)
+        untrimmed = not trimmed
+    elif designs:
+        untrimmed = True
     designs = _finish(spec, cands, designs)
     if status == "feasible" and not designs:
         status = "unknown"
-    notes = []
+    notes = [UNTRIMMED] if untrimmed else []
     if status == "unknown":
         notes.append("time limit reached before any design passed every target; nothing is proved either way"
                      " (try a longer --time-limit)")
@@ -607,11 +616,15 @@ def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
     return verify(spec, cands, [Choice.of(pick, tr)])[0]
 
 
+#: The note of an answer whose capacitors the time limit left as the search proposed them.
+UNTRIMMED = ("the time limit came before the capacitors were trimmed: they are as proposed, larger than"
+             " needed (a longer --time-limit trims them)")
+
 #: Seconds of the search's clock for each capacitor-trim solve.
 TRIM_SECONDS = 1.0
 
 
-def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stats) -> list[Verified]:
+def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stats) -> tuple[list[Verified], bool]:
     """The smallest capacitors (and fewest BOM lines) that keep each design's margin.
 
     The proposals' capacitors are whatever the model found first once the capacitors no
@@ -619,7 +632,8 @@ def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stat
     the transistor, resistors and pots of a design fixed, the model picks the capacitors
     for the fewest BOM lines and the smallest values at the design's own margin (less TIE);
     the analysis has the last word, and a design is only replaced by a variant that keeps
-    its margin within TIE and stays distinct from the others.
+    its margin within TIE and stays distinct from the others. Returns the designs and whether
+    the trim's proposals (if any) were verified: False when the time left was too short.
     """
     proposals = []
     for d in designs:
@@ -640,13 +654,15 @@ def _trim_capacitors(spec, cands, designs, offsets, seed, left, final_need, stat
             ch = Choice.of(pick, tr)
             if ch != d.choice:
                 proposals.append((d, ch))
-    if not proposals or left() < final_need():
-        return designs
+    if not proposals:
+        return designs, True
+    if left() < final_need():
+        return designs, False
     checked = verify(spec, cands, [ch for _, ch in proposals])
     stats["verified"] += len(checked)
     better = {id(d): v for (d, _), v in zip(proposals, checked)
               if v.margin >= max(d.margin - TIE, 0.0) and _simplicity(v) < _simplicity(d)}
-    return _distinct(rank([better.get(id(d), d) for d in designs]))
+    return _distinct(rank([better.get(id(d), d) for d in designs])), True
 
 
 def _distinct(vs: list[Verified]) -> list[Verified]:
