@@ -617,7 +617,7 @@ def _polish(spec, cands, best, offsets, seed, t, stats) -> Verified | None:
 
 
 #: The note of an answer whose capacitors the time limit left as the search proposed them.
-UNTRIMMED = ("the time limit came before the capacitors were trimmed: they are as proposed, larger than"
+UNTRIMMED = ("the time limit came before the capacitor trim was done: some capacitors may be larger than"
              " needed (a longer --time-limit trims them)")
 
 #: Seconds of the search's clock for each capacitor-trim solve.
