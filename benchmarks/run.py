@@ -838,8 +838,14 @@ def part_targets(out: Out) -> dict:
         runs.append({"target": what, "inputs": n, "series": series, "time_limit": limit, "status": r.status,
                      "best_margin": max((d.margin for d in r.designs), default=None), "bound": r.bound,
                      "seconds": t, "work_seconds": r.stats.get("work_seconds"),
-                     "met": r.status in ok and t <= limit})
+                     "met": r.status in ok and t <= limit,
+                     # What the nearest designs that failed missed (target and margin, nepers).
+                     "near_misses": [{"margin": v.margin,
+                                      "missed": {tr.name: round(tr.margin, 3) for tr in v.targets if tr.margin < 0}}
+                                     for v in r.near_misses]})
         out.say(f"  {what}: {r.status} in {t:.1f} s")
+        for v in runs[-1]["near_misses"]:
+            out.say(f"    nearest miss {v['margin']:+.3f}: " + ", ".join(f"{k} {m:+.3f}" for k, m in v["missed"].items()))
     rows = [[r["target"], f"{r['time_limit']:g}", r["status"], r["best_margin"], r["bound"], f"{r['seconds']:.1f}",
              "-" if r["work_seconds"] is None else f"{r['work_seconds']:.1f}", "yes" if r["met"] else "no"]
             for r in runs]
